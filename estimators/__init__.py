@@ -1,0 +1,40 @@
+"""strativ.estimators: the numerical core.
+
+Pure functions on arrays and cell tables; no I/O, no printing. Build a cell table once with
+`build_cells` (or `cells_from_frame`), then `fit` one estimator or `fit_all` side by side.
+"""
+
+from .cells import CellTable, ClusterSums, build_cells, cells_from_frame
+from .errors import DegenerateDesignError, EstimatorError, InputError
+from .fit import ESTIMATORS, fit, fit_all
+from .results import (
+    Comparison,
+    ConfidenceSet,
+    Estimate,
+    ExcludedStratum,
+    Gap,
+    SizeWeighted,
+    StratumRow,
+    StratumTable,
+)
+
+__all__ = [
+    "ESTIMATORS",
+    "CellTable",
+    "ClusterSums",
+    "Comparison",
+    "ConfidenceSet",
+    "DegenerateDesignError",
+    "Estimate",
+    "EstimatorError",
+    "ExcludedStratum",
+    "Gap",
+    "InputError",
+    "SizeWeighted",
+    "StratumRow",
+    "StratumTable",
+    "build_cells",
+    "cells_from_frame",
+    "fit",
+    "fit_all",
+]

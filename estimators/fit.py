@@ -1,0 +1,320 @@
+"""Public entry points: `fit` one estimator, `fit_all` side by side (METHODS.md §3-§4)."""
+
+from __future__ import annotations
+
+import difflib
+import math
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+
+from .cells import CellTable
+from .design import Design, analysis_design
+from .engine import ASSIGNMENTS, SAMPLINGS, VARIANCES, covariance, ratio_variance
+from .errors import InputError
+from .forms import LinearForm, complier_form, design_weighted_form, fixed_effects_form
+from .intervals import critical_value, fieller_set, normal_interval
+from .results import Comparison, Estimate
+from .strata import contrast, size_weighted, stratum_table
+
+__all__ = ["ESTIMATORS", "fit", "fit_all"]
+
+ESTIMATORS = ("fixed_effects", "weighted", "interacted")
+
+ESTIMANDS = {
+    "fixed_effects": "stratum effects weighted by n*p(1-p)*first stage; the LATE only if "
+    "effects or offer shares are equal across strata",
+    "weighted": "LATE: complier average effect (complier weights n*first stage)",
+    "interacted": "LATE: complier average effect (stratum effects, complier weights)",
+}
+
+
+def _choice(value: Any, allowed: Sequence[str], argument: str) -> str:
+    if value in allowed:
+        return value
+    near = difflib.get_close_matches(str(value), allowed, n=1)
+    hint = f" Did you mean {near[0]!r}?" if near else ""
+    raise InputError(argument, f"unknown value {value!r}; use one of {list(allowed)}.{hint}")
+
+
+def _check_options(
+    cells: CellTable, variance: str, assignment: str, sampling: str, level: float
+) -> None:
+    if not isinstance(cells, CellTable):
+        raise InputError("cells", "expected a CellTable from build_cells or cells_from_frame.")
+    _choice(variance, VARIANCES, "variance")
+    _choice(assignment, ASSIGNMENTS, "assignment")
+    _choice(sampling, SAMPLINGS, "sampling")
+    if not isinstance(level, (int, float)) or not 0.0 < float(level) < 1.0:
+        raise InputError("level", f"expected a confidence level between 0 and 1, got {level!r}.")
+    if variance == "cluster":
+        if cells.clusters is None:
+            raise InputError(
+                "variance", "'cluster' needs cells built with cluster=...; pass the cluster ids."
+            )
+        if assignment == "independent":
+            raise InputError(
+                "assignment",
+                "'independent' is not supported with variance='cluster': clusters are offered "
+                "as blocks; use assignment='block'.",
+            )
+
+
+def _probabilities(design: Design, offer_probability: Mapping[Any, float] | None):
+    if offer_probability is None:
+        return None
+    if not isinstance(offer_probability, Mapping):
+        raise InputError("offer_probability", "expected a mapping {stratum label: probability}.")
+    known = set(design.labels) | {e.label for e in design.exclusions}
+    unknown = [k for k in offer_probability if k not in known]
+    if unknown:
+        raise InputError(
+            "offer_probability", f"labels {unknown[:5]} are not strata of the data; check them."
+        )
+    missing = [label for label in design.labels if label not in offer_probability]
+    if missing:
+        raise InputError(
+            "offer_probability", f"no probability for strata {missing[:5]}; give every stratum."
+        )
+    values = np.array([float(offer_probability[label]) for label in design.labels])
+    bad = ~((values > 0.0) & (values < 1.0))
+    if bad.any():
+        label = design.labels[int(np.flatnonzero(bad)[0])]
+        raise InputError(
+            "offer_probability",
+            f"stratum {label!r} has probability {offer_probability[label]!r}; use a value "
+            "strictly between 0 and 1.",
+        )
+    return values
+
+
+def _form(design: Design, estimator: str, probability: np.ndarray | None) -> LinearForm:
+    if estimator == "fixed_effects":
+        return fixed_effects_form(design)
+    if estimator == "weighted":
+        if probability is not None:
+            return design_weighted_form(design, probability)
+        return complier_form(design, saturated=False)
+    return complier_form(design, saturated=True)
+
+
+def _notes(estimator: str, variance: str, probability: np.ndarray | None) -> tuple[str, ...]:
+    notes = []
+    if estimator == "weighted" and variance in ("robust", "robust_scaled"):
+        notes.append(
+            "robust variance of the weighted regression treats offer probabilities as known "
+            "and counts level differences between strata as noise: conservative"
+        )
+    if estimator == "weighted" and probability is not None:
+        notes.append("weights use the design offer probabilities (ratio means per arm)")
+    if estimator == "interacted" and variance in ("robust", "robust_scaled"):
+        notes.append("robust variance: delta method on the saturated regression's sandwich")
+    return tuple(notes)
+
+
+def _estimate(
+    design: Design,
+    form: LinearForm,
+    estimator: str,
+    *,
+    variance: str,
+    assignment: str,
+    sampling: str,
+    level: float,
+    notes: tuple[str, ...],
+) -> Estimate:
+    options = {"variance": variance, "assignment": assignment, "sampling": sampling}
+    omega = covariance(design, [form], **options)
+    spread = covariance(design, [form], centred=True, **options)
+    z = critical_value(level)
+    n, d = form.numerator, form.denominator
+    a, b, c = float(omega[0, 0]), float(omega[0, 1]), float(omega[1, 1])
+    conf = fieller_set(n, d, a, b, c, z)
+    f_stat = d * d / c if c > 0 else None
+    estimate = std_error = interval = None
+    reason = None
+    if d == 0:
+        reason = "the overall first stage is zero: offer did not change take-up"
+    else:
+        estimate = n / d
+        std_error = math.sqrt(ratio_variance(omega, estimate, d))
+        interval = normal_interval(estimate, std_error, z)
+    return Estimate(
+        estimator=estimator,
+        estimand=ESTIMANDS[estimator],
+        estimate=estimate,
+        std_error=std_error,
+        interval=interval,
+        confidence_set=conf,
+        first_stage_f=f_stat,
+        itt=n,
+        itt_std_error=math.sqrt(max(float(spread[0, 0]), 0.0)),
+        first_stage=d,
+        first_stage_std_error=math.sqrt(max(float(spread[1, 1]), 0.0)),
+        n_units=design.n_units,
+        n_strata=len(design.labels),
+        variance=variance,
+        assignment=assignment,
+        sampling=sampling,
+        level=float(level),
+        undefined_reason=reason,
+        notes=notes,
+    )
+
+
+def fit(
+    cells: CellTable,
+    *,
+    estimator: str = "fixed_effects",
+    variance: str = "stratified",
+    assignment: str = "block",
+    sampling: str = "random",
+    level: float = 0.95,
+    offer_probability: Mapping[Any, float] | None = None,
+) -> Estimate:
+    """Fit one IV estimator of the effect of take-up, with its inference.
+
+    Parameters
+    ----------
+    cells : CellTable
+        From `build_cells` or `cells_from_frame`.
+    estimator : {"fixed_effects", "weighted", "interacted"}, default="fixed_effects"
+        Fixed effects: 2SLS with stratum dummies. Weighted: inverse-probability weighted 2SLS.
+        Interacted: stratum effects combined with complier weights.
+    variance : {"stratified", "robust", "robust_scaled", "cluster"}, default="stratified"
+        Stratified is design-based and allows heterogeneous effects; robust is the
+        regression sandwich (HC0), robust_scaled adds ``n / (n - k)``; cluster sums
+        deviations within clusters.
+    assignment : {"block", "independent"}, default="block"
+        Block: the offer count per stratum was fixed. Independent: each unit was offered
+        independently, so the count is random (adds the assignment term for fixed effects).
+    sampling : {"fixed", "random"}, default="random"
+        Random: units were sampled from a population, stratum sizes are random (adds the
+        between-strata term). Fixed: sizes fixed by design.
+    level : float, default=0.95
+        Confidence level of the normal interval and the Fieller set.
+    offer_probability : mapping of stratum label to float, optional
+        Design offer probabilities; used by the weighted estimator instead of the realized
+        offer shares.
+
+    Returns
+    -------
+    Estimate
+        The estimate, standard error, normal interval, Fieller / Anderson-Rubin set,
+        first-stage F, and the ITT and first stage under the estimator's weighting.
+
+    Raises
+    ------
+    InputError
+        An unknown option value, a level outside (0, 1), cluster variance without clusters,
+        or design probabilities that miss a stratum or fall outside (0, 1).
+    DegenerateDesignError
+        When no stratum has both offered and not-offered units.
+
+    Notes
+    -----
+    Every estimator is ``N / D`` with ``N = sum_s a_s ITT_s`` and ``D = sum_s a_s FS_s``
+    (METHODS.md §3); its variance is ``(A - 2 theta B + theta^2 C) / D^2`` from one engine
+    (METHODS.md §4). Strata with offer share 0 or 1 are excluded.
+
+    Examples
+    --------
+    >>> cells = build_cells(y, d, z, site)  # doctest: +SKIP
+    >>> fit(cells, estimator="weighted").interval  # doctest: +SKIP
+    """
+    estimator = _choice(estimator, ESTIMATORS, "estimator")
+    _check_options(cells, variance, assignment, sampling, level)
+    design = analysis_design(cells)
+    probability = _probabilities(design, offer_probability)
+    form = _form(design, estimator, probability)
+    return _estimate(
+        design,
+        form,
+        estimator,
+        variance=variance,
+        assignment=assignment,
+        sampling=sampling,
+        level=level,
+        notes=_notes(estimator, variance, probability),
+    )
+
+
+def fit_all(
+    cells: CellTable,
+    *,
+    estimators: Sequence[str] = ESTIMATORS,
+    variance: str = "stratified",
+    assignment: str = "block",
+    sampling: str = "random",
+    level: float = 0.95,
+    offer_probability: Mapping[Any, float] | None = None,
+) -> Comparison:
+    """Fit several estimators on one analysis sample, with the contrast and stratum table.
+
+    Parameters
+    ----------
+    cells : CellTable
+        From `build_cells` or `cells_from_frame`.
+    estimators : sequence of str, default=("fixed_effects", "weighted", "interacted")
+        Which estimators, in the order to report them; no repeats.
+    variance, assignment, sampling, level, offer_probability
+        As in `fit`.
+
+    Returns
+    -------
+    Comparison
+        The estimates, the per-stratum table with implied weights, fixed effects minus the
+        complier-weighted estimate with its standard error and per-stratum decomposition, and
+        the stratum-size-weighted average.
+
+    Raises
+    ------
+    InputError
+        As in `fit`, and for an empty or repeated estimator list.
+    DegenerateDesignError
+        When no stratum has both offered and not-offered units.
+
+    Notes
+    -----
+    The contrast reads the joint covariance of both estimators from the same engine:
+    ``theta_FE - theta_LATE = sum_s (w_s^FE - w_s^LATE) beta_s`` (METHODS.md §3).
+    """
+    names = [_choice(e, ESTIMATORS, "estimators") for e in estimators]
+    if not names or len(set(names)) != len(names):
+        raise InputError("estimators", f"expected distinct estimator names, got {list(names)}.")
+    _check_options(cells, variance, assignment, sampling, level)
+    design = analysis_design(cells)
+    probability = _probabilities(design, offer_probability)
+    options = {"variance": variance, "assignment": assignment, "sampling": sampling}
+    estimates = tuple(
+        _estimate(
+            design,
+            _form(design, name, probability),
+            name,
+            level=level,
+            notes=_notes(name, variance, probability),
+            **options,
+        )
+        for name in names
+    )
+    fe = fixed_effects_form(design)
+    late = complier_form(design, saturated=True)
+    notes = []
+    if probability is None and {"weighted", "interacted"} <= set(names):
+        notes.append(
+            "weighted and interacted share one point estimate here: with estimated offer "
+            "shares and no covariates both weight strata by n*first stage (METHODS.md §3)"
+        )
+    if design.single_unit_cells:
+        notes.append(
+            f"{design.single_unit_cells} one-unit cell(s) borrowed the pooled within-arm "
+            "variance of their arm"
+        )
+    return Comparison(
+        estimates=estimates,
+        strata=stratum_table(design, fe, late, variance=variance),
+        gap=contrast(design, fe, late, level=level, **options),
+        size_weighted=size_weighted(design, variance=variance, sampling=sampling),
+        notes=tuple(notes),
+    )

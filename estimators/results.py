@@ -1,0 +1,265 @@
+"""Result types: frozen dataclasses holding numbers only, each with a JSON-ready `to_dict`.
+
+An undefined number is ``None`` with a reason beside it, never NaN or inf.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, fields
+from typing import Any
+
+__all__ = [
+    "ConfidenceSet",
+    "Estimate",
+    "ExcludedStratum",
+    "StratumRow",
+    "StratumTable",
+    "Gap",
+    "SizeWeighted",
+    "Comparison",
+    "clean",
+]
+
+
+def clean(value: Any) -> Any:
+    """Turn a value into JSON-ready data: numpy scalars to Python, NaN/inf to None."""
+    if hasattr(value, "to_dict"):
+        return value.to_dict()
+    if isinstance(value, (list, tuple)):
+        return [clean(v) for v in value]
+    if isinstance(value, dict):
+        return {str(k): clean(v) for k, v in value.items()}
+    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+def _as_dict(obj: Any) -> dict[str, Any]:
+    return {f.name: clean(getattr(obj, f.name)) for f in fields(obj)}
+
+
+@dataclass(frozen=True, slots=True)
+class ConfidenceSet:
+    """A Fieller / Anderson-Rubin confidence set for the effect."""
+
+    shape: str
+    """``bounded`` ([lower, upper]), ``two_rays`` ((-inf, lower] and [upper, inf)) or
+    ``whole_line``."""
+    lower: float | None
+    """Lower end of the interval, or the end of the left ray."""
+    upper: float | None
+    """Upper end of the interval, or the start of the right ray."""
+
+    def contains(self, value: float) -> bool:
+        """Whether the set contains ``value``."""
+        if self.shape == "whole_line":
+            return True
+        if self.shape == "bounded":
+            return self.lower <= value <= self.upper
+        return value <= self.lower or value >= self.upper
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return _as_dict(self)
+
+
+@dataclass(frozen=True, slots=True)
+class Estimate:
+    """One estimator's effect estimate with its inference."""
+
+    estimator: str
+    """``fixed_effects``, ``weighted`` or ``interacted``."""
+    estimand: str
+    """What the estimator targets, in plain words."""
+    estimate: float | None
+    """Effect of take-up; None when the overall first stage is zero."""
+    std_error: float | None
+    """Delta-method standard error in the chosen flavour."""
+    interval: tuple[float, float] | None
+    """Normal confidence interval at `level`."""
+    confidence_set: ConfidenceSet
+    """Fieller / Anderson-Rubin set at `level`; honest under a weak first stage."""
+    first_stage_f: float | None
+    """``(D / se(D))^2`` with the null-imposed variance that the Fieller set uses."""
+    itt: float
+    """Intention-to-treat effect under this estimator's weighting."""
+    itt_std_error: float
+    """Standard error of `itt`."""
+    first_stage: float
+    """First stage (complier share) under this estimator's weighting."""
+    first_stage_std_error: float
+    """Standard error of `first_stage`."""
+    n_units: int
+    """Units in the analysis sample."""
+    n_strata: int
+    """Strata used."""
+    variance: str
+    """Variance flavour."""
+    assignment: str
+    """Offer assignment assumed by the stratified and cluster flavours."""
+    sampling: str
+    """Stratum sampling assumed by the stratified and cluster flavours."""
+    level: float
+    """Confidence level."""
+    undefined_reason: str | None = None
+    """Why `estimate` is None, when it is."""
+    notes: tuple[str, ...] = ()
+    """Remarks a reader needs (for example, a conservative variance)."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return _as_dict(self)
+
+
+@dataclass(frozen=True, slots=True)
+class ExcludedStratum:
+    """A stratum left out of every estimator."""
+
+    label: Any
+    """Stratum label."""
+    n: int
+    """Units in the stratum."""
+    reason: str
+    """Why it carries no information about an effect."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return _as_dict(self)
+
+
+@dataclass(frozen=True, slots=True)
+class StratumRow:
+    """One stratum of the analysis sample."""
+
+    label: Any
+    """Stratum label."""
+    n: int
+    """Units."""
+    n_offered: int
+    """Units offered."""
+    n_not_offered: int
+    """Units not offered."""
+    offer_share: float
+    """Realized offer share."""
+    mean_outcome_offered: float
+    """Mean outcome, offered arm."""
+    mean_outcome_not_offered: float
+    """Mean outcome, not-offered arm."""
+    take_up_offered: float
+    """Take-up rate, offered arm."""
+    take_up_not_offered: float
+    """Take-up rate, not-offered arm (always-takers)."""
+    itt: float
+    """Intention-to-treat effect."""
+    first_stage: float
+    """First stage (complier share)."""
+    effect: float | None
+    """Stratum LATE ``itt / first_stage``; None when the first stage is zero."""
+    effect_std_error: float | None
+    """Standard error of `effect` in the chosen flavour."""
+    effect_reason: str | None
+    """Why `effect` is None, when it is."""
+    weight_fixed_effects: float
+    """Implied weight of this stratum's effect in the fixed-effects estimate."""
+    weight_complier: float
+    """Implied complier weight (weighted and interacted estimators)."""
+    always_takers: float
+    """Share taking up without an offer."""
+    never_takers: float
+    """Share not taking up despite an offer."""
+    compliers: float
+    """Complier share (equals the first stage)."""
+    gap_contribution: float
+    """This stratum's part of fixed effects minus complier-weighted."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return _as_dict(self)
+
+
+@dataclass(frozen=True, slots=True)
+class StratumTable:
+    """Per-stratum table and the strata left out."""
+
+    rows: tuple[StratumRow, ...]
+    """Strata used, in label order."""
+    excluded: tuple[ExcludedStratum, ...]
+    """Strata left out, with reasons."""
+    single_unit_cells: int = 0
+    """Cells of one unit that borrowed the pooled within-arm variance."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return _as_dict(self)
+
+
+@dataclass(frozen=True, slots=True)
+class Gap:
+    """Fixed-effects estimate minus the complier-weighted estimate."""
+
+    estimate: float | None
+    """The difference; None when either estimate is undefined."""
+    std_error: float | None
+    """Its standard error from the joint covariance of both estimators."""
+    interval: tuple[float, float] | None
+    """Normal interval at the comparison's level."""
+    z: float | None
+    """``estimate / std_error``: how many standard errors apart the two are."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return _as_dict(self)
+
+
+@dataclass(frozen=True, slots=True)
+class SizeWeighted:
+    """The stratum-size-weighted average of stratum effects ``sum_s q_s beta_s``."""
+
+    estimate: float | None
+    """The average; None when a stratum's first stage is zero."""
+    std_error: float | None
+    """Its standard error (strata independent)."""
+    fragile: bool
+    """True when a stratum's first stage is within two standard errors of zero."""
+    reason: str | None
+    """Why it is None or fragile."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return _as_dict(self)
+
+
+@dataclass(frozen=True, slots=True)
+class Comparison:
+    """Several estimators fitted on one analysis sample, side by side."""
+
+    estimates: tuple[Estimate, ...]
+    """One per estimator, in the order asked for."""
+    strata: StratumTable
+    """Per-stratum table with implied weights."""
+    gap: Gap | None
+    """Fixed effects minus complier-weighted, with its standard error."""
+    size_weighted: SizeWeighted
+    """Secondary estimand: stratum-size-weighted average of stratum effects."""
+    notes: tuple[str, ...] = ()
+    """Remarks on how the estimators relate on this sample."""
+
+    def get(self, estimator: str) -> Estimate:
+        """The estimate of the named estimator.
+
+        Raises
+        ------
+        KeyError
+            When that estimator was not fitted.
+        """
+        for estimate in self.estimates:
+            if estimate.estimator == estimator:
+                return estimate
+        raise KeyError(estimator)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return _as_dict(self)

@@ -1,0 +1,188 @@
+"""Per-stratum table, the fixed-effects versus complier-weighted contrast, and the
+stratum-size-weighted average (METHODS.md §1, §3, §5)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .design import Design
+from .engine import covariance, stratum_effect_variance
+from .forms import LinearForm
+from .intervals import critical_value, normal_interval
+from .results import Gap, SizeWeighted, StratumRow, StratumTable
+
+__all__ = ["stratum_effects", "stratum_table", "contrast", "size_weighted"]
+
+
+def stratum_effects(design: Design) -> np.ndarray:
+    """Per-stratum Wald ratios ``ITT_s / FS_s``; NaN where the first stage is zero."""
+    fs = design.first_stage
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(fs == 0, np.nan, design.itt / np.where(fs == 0, 1.0, fs))
+
+
+def _implied(form: LinearForm, design: Design) -> np.ndarray:
+    """Implied weight on each stratum effect: ``a_s FS_s / sum_t a_t FS_t``."""
+    if form.denominator == 0:
+        return np.full(len(design.labels), np.nan)
+    return form.stratum_weight * design.first_stage / form.denominator
+
+
+def _float(value: float) -> float | None:
+    return float(value) if math.isfinite(value) else None
+
+
+def stratum_table(
+    design: Design, fe: LinearForm, late: LinearForm, *, variance: str
+) -> StratumTable:
+    """The per-stratum table with effects, standard errors and implied weights.
+
+    Parameters
+    ----------
+    design : Design
+        The analysis sample.
+    fe, late : LinearForm
+        Fixed-effects and complier-weighted forms.
+    variance : str
+        Flavour for the stratum effects' standard errors.
+
+    Returns
+    -------
+    StratumTable
+        Rows in label order; ``gap_contribution`` sums to fixed effects minus
+        complier-weighted: ``(w_s^FE - w_s^LATE) beta_s = ITT_s (b_s^FE / D^FE - b_s / D)``.
+    """
+    effect = stratum_effects(design)
+    eff_var = stratum_effect_variance(design, np.nan_to_num(effect), variance=variance)
+    w_fe, w_late = _implied(fe, design), _implied(late, design)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        gap = design.itt * (fe.stratum_weight / fe.denominator
+                            - late.stratum_weight / late.denominator)
+    rows = []
+    for k, label in enumerate(design.labels):
+        undefined = not math.isfinite(effect[k])
+        rows.append(
+            StratumRow(
+                label=label,
+                n=int(design.n_stratum[k]),
+                n_offered=int(design.n[k, 1]),
+                n_not_offered=int(design.n[k, 0]),
+                offer_share=float(design.offer_share[k]),
+                mean_outcome_offered=float(design.mean_outcome[k, 1]),
+                mean_outcome_not_offered=float(design.mean_outcome[k, 0]),
+                take_up_offered=float(design.mean_take_up[k, 1]),
+                take_up_not_offered=float(design.mean_take_up[k, 0]),
+                itt=float(design.itt[k]),
+                first_stage=float(design.first_stage[k]),
+                effect=None if undefined else float(effect[k]),
+                effect_std_error=None if undefined else math.sqrt(eff_var[k]),
+                effect_reason="first stage is zero in this stratum" if undefined else None,
+                weight_fixed_effects=_float(w_fe[k]),
+                weight_complier=_float(w_late[k]),
+                always_takers=float(design.mean_take_up[k, 0]),
+                never_takers=float(1.0 - design.mean_take_up[k, 1]),
+                compliers=float(design.first_stage[k]),
+                gap_contribution=_float(gap[k]),
+            )
+        )
+    return StratumTable(
+        rows=tuple(rows),
+        excluded=design.exclusions,
+        single_unit_cells=design.single_unit_cells,
+    )
+
+
+def contrast(
+    design: Design,
+    fe: LinearForm,
+    late: LinearForm,
+    *,
+    variance: str,
+    assignment: str,
+    sampling: str,
+    level: float,
+) -> Gap:
+    """Fixed effects minus complier-weighted, with the standard error of the difference.
+
+    Parameters
+    ----------
+    design : Design
+        The analysis sample.
+    fe, late : LinearForm
+        The two estimators.
+    variance, assignment, sampling : str
+        Flavour, as in `fit`.
+    level : float
+        Confidence level.
+
+    Returns
+    -------
+    Gap
+        Undefined (all None) when either first stage is zero.
+
+    Notes
+    -----
+    The difference is linear in the four quantities (N_FE, D_FE, N, D) to first order; its
+    variance is ``c' Omega c`` with ``Omega`` the joint covariance from the engine.
+    """
+    if fe.denominator == 0 or late.denominator == 0:
+        return Gap(estimate=None, std_error=None, interval=None, z=None)
+    omega = covariance(design, [fe, late], variance=variance, assignment=assignment,
+                       sampling=sampling)
+    t_fe = fe.numerator / fe.denominator
+    t_late = late.numerator / late.denominator
+    c = np.array([1.0, -t_fe, 0.0, 0.0]) / fe.denominator
+    c[2:] = -np.array([1.0, -t_late]) / late.denominator
+    var = max(float(c @ omega @ c), 0.0)
+    estimate = t_fe - t_late
+    se = math.sqrt(var)
+    return Gap(
+        estimate=estimate,
+        std_error=se,
+        interval=normal_interval(estimate, se, critical_value(level)),
+        z=estimate / se if se > 0 else None,
+    )
+
+
+def size_weighted(design: Design, *, variance: str, sampling: str) -> SizeWeighted:
+    """The stratum-size-weighted average ``sum_s q_s beta_s`` with ``q_s = n_s / N``.
+
+    Parameters
+    ----------
+    design : Design
+        The analysis sample.
+    variance, sampling : str
+        Flavour of the stratum effects' variances; random sampling adds the spread of the
+        stratum effects around the average.
+
+    Returns
+    -------
+    SizeWeighted
+        None with a reason when a stratum's first stage is zero; ``fragile`` when one is
+        within two standard errors of zero (METHODS.md §1: it needs every ``pi_s > 0``).
+    """
+    fs = design.first_stage
+    if (fs == 0).any():
+        return SizeWeighted(
+            estimate=None,
+            std_error=None,
+            fragile=True,
+            reason="a stratum has a zero first stage, so its effect is undefined",
+        )
+    effect = stratum_effects(design)
+    q = design.n_stratum / design.n_units
+    estimate = float(q @ effect)
+    var = float(q**2 @ stratum_effect_variance(design, effect, variance=variance))
+    if sampling == "random":
+        var += float(q @ (effect - estimate) ** 2) / design.n_units
+    fs_se = np.sqrt((design.cov[..., 1, 1] / design.n).sum(axis=1))
+    weak = np.abs(fs) < 2.0 * fs_se
+    reason = None
+    if weak.any():
+        reason = f"{int(weak.sum())} stratum first stage(s) within two standard errors of zero"
+    return SizeWeighted(
+        estimate=estimate, std_error=math.sqrt(max(var, 0.0)), fragile=bool(weak.any()),
+        reason=reason,
+    )
