@@ -1,0 +1,1 @@
+"""strativ.cli: the strativ command line (being built)."""
