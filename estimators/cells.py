@@ -14,6 +14,13 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
+from .kernels import (
+    FUSED_MIN_ROWS,
+    fine_cell_sums,
+    fine_cell_sums_fused,
+    fused_available,
+    integer_codes,
+)
 
 __all__ = ["CellTable", "ClusterSums", "build_cells", "cells_from_frame"]
 
@@ -85,6 +92,14 @@ def _as_vector(values: Any, argument: str) -> np.ndarray:
     return array
 
 
+def _as_labels(values: Any, argument: str) -> np.ndarray:
+    """Labels as given: numpy turns a list such as ["a", 1, 2.5] into strings; keep objects."""
+    array = _as_vector(values, argument)
+    if array.dtype.kind == "U" and not isinstance(values, np.ndarray):
+        array = _as_vector(np.asarray(values, dtype=object), argument)
+    return array
+
+
 def _as_binary(values: Any, argument: str) -> np.ndarray:
     array = _as_vector(values, argument)
     if array.dtype == bool:
@@ -96,13 +111,21 @@ def _as_binary(values: Any, argument: str) -> np.ndarray:
     bad = ~((array == 0) | (array == 1))
     if bad.any():
         rows = np.flatnonzero(bad)[:5]
-        found = ", ".join(f"{array[i]!r} at index {i}" for i in rows)
+        found = ", ".join(f"{array[i].item()!r} at index {i}" for i in rows)
         raise InputError(argument, f"expected only 0 and 1, found {found}; recode it to 0/1.")
     return array.astype(np.int8)
 
 
+def _plain(value: Any) -> Any:
+    """A numpy scalar as the Python value it holds, so messages show 'g1', not np.str_('g1')."""
+    return value.item() if isinstance(value, np.generic) else value
+
+
 def _factorize(values: np.ndarray, argument: str) -> tuple[np.ndarray, tuple[Any, ...]]:
     """Integer codes 0..K-1 and labels; labels sorted when sortable."""
+    fast = integer_codes(values)
+    if fast is not None:
+        return fast
     try:
         codes, uniques = pd.factorize(values, sort=True)
     except TypeError:
@@ -114,23 +137,28 @@ def _factorize(values: np.ndarray, argument: str) -> tuple[np.ndarray, tuple[Any
     return codes.astype(np.int64), labels
 
 
-def _fine_cell_moments(
-    outcome: np.ndarray, fine: np.ndarray, size: int
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Count, mean and centred sum of squares of the outcome per fine cell.
+def _check_finite(y: np.ndarray) -> None:
+    finite = np.isfinite(y)
+    if not finite.all():
+        row = int(np.flatnonzero(~finite)[0])
+        raise InputError(
+            "outcome",
+            f"non-finite value {float(y[row])!r} at index {row}; drop or impute it first.",
+        )
 
-    Two passes: a rough mean per cell, then sums of the deviations from it, which keeps
-    precision for outcomes with a large mean (the second pass corrects the rough mean).
-    """
-    count = np.bincount(fine, minlength=size).astype(np.int64)
-    safe = np.maximum(count, 1)
-    rough = np.bincount(fine, weights=outcome, minlength=size) / safe
-    shifted = outcome - rough[fine]
-    first = np.bincount(fine, weights=shifted, minlength=size)
-    second = np.bincount(fine, weights=shifted * shifted, minlength=size)
-    mean = rough + first / safe
-    ss = np.maximum(second - first * first / safe, 0.0)
-    return count, mean, ss
+
+def _fused_sums(
+    y: np.ndarray, d: np.ndarray, z: np.ndarray, codes: np.ndarray, n_strata: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None:
+    """The compiled single pass, when the code arrays are plain numbers."""
+    arrays = []
+    for values in (d, z):
+        if values.dtype == bool:
+            values = values.view(np.uint8)
+        if values.dtype.kind not in "iuf":
+            return None
+        arrays.append(values)
+    return fine_cell_sums_fused(y, arrays[0], arrays[1], codes, n_strata)
 
 
 def _cell_arrays_from_fine(
@@ -172,7 +200,8 @@ def _cluster_sums(
         row = int(np.flatnonzero(first_cell[codes] != cell)[0])
         raise InputError(
             "cluster",
-            f"cluster {cluster[row]!r} (index {row}) spans more than one (stratum, offer) cell; "
+            f"cluster {_plain(cluster[row])!r} (index {row}) spans more than one "
+            "(stratum, offer) cell; "
             "clusters must be nested in strata and offered as a whole.",
         )
     mean_y = arrays["mean_outcome"].reshape(-1)[cell]
@@ -232,7 +261,10 @@ def build_cells(
     Within a (stratum, offer, take-up) cell the take-up is constant, so counts give every
     take-up moment; only the outcome needs sums. The outcome's sum of squares is taken
     around a first-pass cell mean, so a large common level (mean 1e9, spread 1) loses no
-    precision. METHODS.md §2.
+    precision. From ``kernels.FUSED_MIN_ROWS`` rows on (and without clusters) one compiled
+    pass reads every array once, shifting each outcome by its stratum's first value; both
+    paths give the same table. Integer stratum labels are coded without hashing.
+    METHODS.md §2.
 
     Examples
     --------
@@ -241,12 +273,12 @@ def build_cells(
     [[2, 2]]
     """
     y = _as_vector(outcome, "outcome")
-    d = _as_binary(take_up, "take_up")
-    z = _as_binary(offer, "offer")
-    s = _as_vector(stratum, "stratum")
-    lengths = {"outcome": y.size, "take_up": d.size, "offer": z.size, "stratum": s.size}
+    d_raw = _as_vector(take_up, "take_up")
+    z_raw = _as_vector(offer, "offer")
+    s = _as_labels(stratum, "stratum")
+    lengths = {"outcome": y.size, "take_up": d_raw.size, "offer": z_raw.size, "stratum": s.size}
     if cluster is not None:
-        cluster = _as_vector(cluster, "cluster")
+        cluster = _as_labels(cluster, "cluster")
         lengths["cluster"] = cluster.size
     if len(set(lengths.values())) != 1:
         raise InputError("arrays", f"lengths differ: {lengths}; pass one value per unit.")
@@ -255,21 +287,30 @@ def build_cells(
     if not np.issubdtype(y.dtype, np.number) or y.dtype == bool:
         raise InputError("outcome", f"expected numbers, got dtype {y.dtype}.")
     y = y.astype(np.float64, copy=False)
-    finite = np.isfinite(y)
-    if not finite.all():
-        row = int(np.flatnonzero(~finite)[0])
-        raise InputError(
-            "outcome", f"non-finite value {y[row]!r} at index {row}; drop or impute it first."
-        )
     codes, labels = _factorize(s, "stratum")
     n_strata = len(labels)
-    cell = codes * 2 + z
-    fine = cell * 2 + d
-    count, mean, ss = _fine_cell_moments(y, fine, 4 * n_strata)
-    arrays = _cell_arrays_from_fine(count, mean, ss, n_strata)
+    sums = None
+    if cluster is None and y.size >= FUSED_MIN_ROWS and fused_available():
+        sums = _fused_sums(y, d_raw, z_raw, codes, n_strata)
+    if sums is None:
+        d = _as_binary(d_raw, "take_up")
+        z = _as_binary(z_raw, "offer")
+        _check_finite(y)
+        cell = codes * 2 + z
+        # centre on one value of each stratum (any will do), so no sum sees a large level
+        first_row = np.full(n_strata, -1, dtype=np.int64)
+        first_row[codes[::-1]] = np.arange(y.size - 1, -1, -1)
+        centre = y[first_row]
+        y = y - centre[codes]
+        sums = (*fine_cell_sums(y, cell * 2 + d, 4 * n_strata), centre)
+    *fine, centre = sums
+    arrays = _cell_arrays_from_fine(*fine, n_strata)
     clusters = None
     if cluster is not None:
         clusters = _cluster_sums(y, d, cell, cluster, arrays, 2 * n_strata)
+    arrays["mean_outcome"] = np.where(
+        arrays["n"] > 0, arrays["mean_outcome"] + centre[:, None], 0.0
+    )
     return CellTable(labels=labels, clusters=clusters, **arrays)
 
 

