@@ -79,16 +79,20 @@ def _moment_matrix(yy: np.ndarray, yd: np.ndarray, dd: np.ndarray) -> np.ndarray
 
 
 def _unbiased_cov(ss: np.ndarray, n: np.ndarray) -> tuple[np.ndarray, int]:
+    """Cell covariances with divisor n - 1; a one-unit cell borrows the pooled covariance of
+    the other cells of its arm, or of all cells when its arm has no cell of two or more."""
     cov = ss / np.maximum(n - 1.0, 1.0)[..., None, None]
     single = n == 1
+    donors_all = n >= 2
+    dof_all = (n[donors_all] - 1.0).sum()
+    pooled_all = ss[donors_all].sum(axis=0) / dof_all if dof_all > 0 else np.zeros((2, 2))
     for arm in (0, 1):
         lonely = single[:, arm]
         if not lonely.any():
             continue
         donors = n[:, arm] >= 2
         dof = (n[donors, arm] - 1.0).sum()
-        pooled = ss[donors, arm].sum(axis=0) / dof if dof > 0 else np.zeros((2, 2))
-        cov[lonely, arm] = pooled
+        cov[lonely, arm] = ss[donors, arm].sum(axis=0) / dof if dof > 0 else pooled_all
     return cov, int(single.sum())
 
 

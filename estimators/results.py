@@ -208,6 +208,8 @@ class Gap:
     """Normal interval at the comparison's level."""
     z: float | None
     """``estimate / std_error``: how many standard errors apart the two are."""
+    reason: str | None = None
+    """Why the standard error or z is None, when it is."""
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready form."""

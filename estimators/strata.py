@@ -120,7 +120,8 @@ def contrast(
     Returns
     -------
     Gap
-        Undefined (all None) when either first stage is zero.
+        Undefined (None with a reason) when either first stage is zero; without a standard
+        error when the two estimators' implied weights coincide.
 
     Notes
     -----
@@ -128,11 +129,16 @@ def contrast(
     variance is ``c' Omega c`` with ``Omega`` the joint covariance from the engine.
     """
     if fe.denominator == 0 or late.denominator == 0:
-        return Gap(estimate=None, std_error=None, interval=None, z=None)
-    omega = covariance(design, [fe, late], variance=variance, assignment=assignment,
-                       sampling=sampling)
+        return Gap(estimate=None, std_error=None, interval=None, z=None,
+                   reason="an overall first stage is zero")
     t_fe = fe.numerator / fe.denominator
     t_late = late.numerator / late.denominator
+    if np.allclose(_implied(fe, design), _implied(late, design), rtol=0.0, atol=1e-12):
+        return Gap(estimate=t_fe - t_late, std_error=None, interval=None, z=None,
+                   reason="fixed-effects and complier weights coincide (equal offer shares or "
+                   "one stratum): the two estimators are the same")
+    omega = covariance(design, [fe, late], variance=variance, assignment=assignment,
+                       sampling=sampling)
     c = np.array([1.0, -t_fe, 0.0, 0.0]) / fe.denominator
     c[2:] = -np.array([1.0, -t_late]) / late.denominator
     var = max(float(c @ omega @ c), 0.0)
@@ -143,6 +149,7 @@ def contrast(
         std_error=se,
         interval=normal_interval(estimate, se, critical_value(level)),
         z=estimate / se if se > 0 else None,
+        reason=None if se > 0 else "the difference has no sampling variance",
     )
 
 

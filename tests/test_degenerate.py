@@ -172,7 +172,13 @@ def test_zero_overall_first_stage_leaves_the_estimate_undefined_with_a_reason(fl
         # source: CONTRACT.md, StratumRow.effect None with effect_reason when FS_s = 0
         assert row["effect"] is None and row["effect_std_error"] is None
         assert row["effect_reason"] == "first stage is zero in this stratum"
-    assert data["gap"] == {"estimate": None, "std_error": None, "interval": None, "z": None}
+    assert data["gap"] == {
+        "estimate": None,
+        "std_error": None,
+        "interval": None,
+        "z": None,
+        "reason": "an overall first stage is zero",
+    }
     assert data["size_weighted"]["estimate"] is None
     assert "zero first stage" in data["size_weighted"]["reason"]
 

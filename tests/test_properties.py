@@ -130,6 +130,11 @@ def comparable(result: dict[str, Any]) -> dict[str, Any]:
     gap = result["gap"]
     scale = max(e["std_error"] for e in result["estimates"]) ** 2
     out = {k: v for k, v in result.items() if k != "gap"}
+    out["variance_floor"] = scale
+    if gap["std_error"] is None:  # weights coincide: no spread to compare
+        out["gap"] = {"estimate": gap["estimate"], "variance": 0.0, "half_width_sq": 0.0,
+                      "reason": gap["reason"]}
+        return out
     low, high = gap["interval"]
     out["gap"] = {
         "estimate": gap["estimate"],
@@ -139,7 +144,6 @@ def comparable(result: dict[str, Any]) -> dict[str, Any]:
     }
     if gap["std_error"] ** 2 > 1e-6 * scale:
         out["gap"]["z"] = gap["z"]
-    out["variance_floor"] = scale
     return out
 
 
@@ -269,6 +273,7 @@ def affine_image(result: dict[str, Any], a: float, b: float) -> dict[str, Any]:
         "std_error": _scaled(gap["std_error"], abs(b)),
         "interval": _ends(gap["interval"], b),
         "z": _scaled(gap["z"], math.copysign(1.0, b)),
+        "reason": gap["reason"],
     }
     size = result["size_weighted"]
     out["size_weighted"] = {

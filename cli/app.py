@@ -1,0 +1,189 @@
+"""The `strativ` command: run, check, init, --version.
+
+Command functions are thin: they convert arguments, call the library, render and write. One
+boundary (`_boundary`) turns every error into a message on stderr and an exit code, so no
+traceback reaches the user:
+
+- 0: success;
+- 1: unexpected internal error (a bug; the message asks for a report);
+- 2: usage or spec error (unknown key, bad value, missing file, refused output path; also
+  command-line mistakes reported by the argument parser);
+- 3: data error (missing column, bad codes, missing values, empty or unreadable file);
+- 130: interrupted (Ctrl-C).
+"""
+
+from __future__ import annotations
+
+import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
+from enum import Enum
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console
+from rich.text import Text
+
+from . import __version__
+from .errors import EXIT_INTERNAL, CliError, UsageError
+from .loading import load_data
+from .render import make_console, render_check, render_error, render_run, render_warnings
+from .results import check_output_paths, write_outputs
+from .runner import data_warnings, design_probabilities, run_spec, summarize_design
+from .spec import DATA_SUFFIXES, load_spec
+from .starter import starter_spec, write_new_file
+
+__all__ = ["app", "main"]
+
+EXIT_INTERRUPTED = 130
+
+app = typer.Typer(
+    name="strativ",
+    help="Side-by-side IV estimates for offer lotteries run separately within strata.\n\n"
+    "Example:  strativ run specs/demo.yaml",
+    add_completion=False,
+    no_args_is_help=True,
+    pretty_exceptions_enable=False,
+    context_settings={"help_option_names": ["-h", "--help"]},
+)
+
+
+class OutputFormat(str, Enum):
+    """A result file to write."""
+
+    json = "json"
+    csv = "csv"
+
+
+@contextmanager
+def _boundary() -> Iterator[Console]:
+    """Yield the stderr console; turn every error into a message and an exit code."""
+    err = make_console(stderr=True)
+    try:
+        yield err
+    except CliError as exc:
+        render_error(err, exc)
+        raise typer.Exit(exc.exit_code) from None
+    except (typer.Exit, typer.Abort):
+        raise
+    except KeyboardInterrupt:
+        err.print("interrupted")
+        raise typer.Exit(EXIT_INTERRUPTED) from None
+    except Exception as exc:  # the last gate: never show a traceback
+        err.print(Text.assemble(
+            Text("internal error: ", style="bold red"),
+            f"{type(exc).__name__}: {exc}\n  This is a bug in strativ; please report it with "
+            "the command and the spec you ran."))
+        raise typer.Exit(EXIT_INTERNAL) from None
+
+
+def _version(value: bool) -> None:
+    if value:
+        print(f"strativ {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def _root(
+    version: Annotated[bool, typer.Option("--version", callback=_version, is_eager=True,
+                                          help="Print the version and exit.")] = False,
+) -> None:
+    """Side-by-side IV estimates for offer lotteries run separately within strata.
+
+    Example:  strativ run specs/demo.yaml
+    """
+
+
+SpecArg = Annotated[Path, typer.Argument(exists=True, dir_okay=False, readable=True,
+                                         show_default=False, metavar="SPEC",
+                                         help="The YAML spec file.")]
+
+
+@app.command()
+def run(
+    spec: SpecArg,
+    out: Annotated[Path | None, typer.Option(
+        "--out", "-o", file_okay=False, show_default=False,
+        help="Output directory (overrides output.dir of the spec).")] = None,
+    quiet: Annotated[bool, typer.Option(
+        "--quiet", "-q", help="Print nothing but errors; still write the result files.")] = False,
+    formats: Annotated[list[OutputFormat] | None, typer.Option(
+        "--format", "-f", show_default=False,
+        help="Result file to write: json (results.json) or csv (strata.csv); repeat for "
+        "both. Default: output.formats of the spec.")] = None,
+) -> None:
+    """Fit the estimators of SPEC, print the comparison and write the result files.
+
+    Example:  strativ run specs/demo.yaml --out results/ --format json
+    """
+    with _boundary() as err:
+        loaded = load_spec(spec)
+        out_dir = loaded.output_dir if out is None else out.expanduser().resolve()
+        chosen = tuple(dict.fromkeys(f.value for f in formats)) if formats else loaded.formats
+        check_output_paths(loaded, out_dir, chosen)
+        dataset = load_data(loaded)
+        result = run_spec(loaded, dataset)
+        if not quiet:
+            render_run(make_console(), result)
+        written = write_outputs(result, out_dir, chosen)
+        if not quiet:
+            render_warnings(err, result.warnings)
+            err.print(Text.assemble("wrote ", Text(", ".join(str(p) for p in written))))
+
+
+@app.command()
+def check(spec: SpecArg) -> None:
+    """Validate SPEC and its data and print the design summary, without fitting.
+
+    Exits 0 when `strativ run` can fit the spec.
+
+    Example:  strativ check specs/demo.yaml
+    """
+    with _boundary() as err:
+        loaded = load_spec(spec)
+        check_output_paths(loaded, loaded.output_dir, loaded.formats)
+        dataset = load_data(loaded)
+        probabilities = design_probabilities(loaded, dataset)
+        summary = summarize_design(loaded, dataset)
+        render_check(make_console(), loaded, dataset, summary, probabilities)
+        render_warnings(err, data_warnings(loaded, dataset))
+
+
+@app.command()
+def init(
+    data: Annotated[Path, typer.Argument(exists=True, dir_okay=False, readable=True,
+                                         show_default=False, metavar="DATA",
+                                         help="A CSV or Parquet data file to inspect.")],
+    output: Annotated[Path, typer.Option(
+        "--output", "-o", dir_okay=False,
+        help="Where to write the starter spec; an existing file is never overwritten.")]
+    = Path("strativ.yaml"),
+) -> None:
+    """Inspect DATA and write a starter spec, filling in only the roles the data make clear.
+
+    Example:  strativ init demo_data/round_1.csv --output my_study.yaml
+    """
+    with _boundary() as err:
+        if data.suffix.lower() not in DATA_SUFFIXES:
+            raise UsageError(f"{data.name} is not a CSV or Parquet file",
+                             "strativ reads files ending in .csv, .parquet or .pq")
+        target = output.expanduser()
+        write_new_file(target, starter_spec(data, target))
+        err.print(Text.assemble("wrote ", Text(str(target)), "; fill in the commented roles, "
+                                "then run: strativ check ", Text(str(target))))
+
+
+def main() -> None:
+    """Console entry point of `strativ`; the outermost guard against a traceback."""
+    try:
+        app(prog_name="strativ")
+    except SystemExit:
+        raise
+    except BaseException as exc:  # noqa: BLE001 - the user must never see a traceback
+        if isinstance(exc, KeyboardInterrupt):
+            sys.stderr.write("interrupted\n")
+            sys.exit(EXIT_INTERRUPTED)
+        sys.stderr.write(f"internal error: {type(exc).__name__}: {exc}\n"
+                         "  This is a bug in strativ; please report it.\n")
+        sys.exit(EXIT_INTERNAL)

@@ -1,0 +1,445 @@
+"""Read the data files a spec names, check every column for its role, and stack the rows.
+
+One file at a time: read it (CSV with the standard library reader so that line numbers stay
+exact; Parquet with pyarrow), check that every named column exists (listing near matches),
+parse each column for its role, and report bad values with their rows. Then drop
+incomplete rows when the spec allows it, and concatenate. Nothing here computes a statistic.
+
+Row numbers in messages are 1-based data rows: row 1 is the first row after the header. For
+CSV files the line in the file is given too.
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import io
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .errors import DataError
+from .spec import Spec, suggest
+from .values import Parsed, parse_binary, parse_label, parse_number
+
+__all__ = ["InputFile", "Dataset", "load_data", "file_fingerprint", "read_table"]
+
+STRATUM_JOIN = " / "
+"""Separator between the parts of a stratum label built from several columns."""
+_SHOWN = 5
+_OTHER_DELIMITERS = {";": "semicolons", "\t": "tabs", "|": "vertical bars"}
+
+
+@dataclass(frozen=True, slots=True)
+class InputFile:
+    """Fingerprint of one data file."""
+
+    path: Path
+    """Absolute path."""
+    size: int
+    """Size in bytes."""
+    sha256: str
+    """Hex SHA-256 of the file's bytes."""
+    rows: int
+    """Data rows read (header and blank lines not counted)."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the JSON form of the fingerprint."""
+        return {"file": self.path.name, "path": str(self.path), "size_bytes": self.size,
+                "sha256": self.sha256, "rows": self.rows}
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Dataset:
+    """The rows of all data files, one array per role, after the data rules."""
+
+    files: tuple[InputFile, ...]
+    """Fingerprints of the files read."""
+    outcomes: dict[str, np.ndarray]
+    """Outcome name -> float array, NaN where the outcome is missing."""
+    take_up: np.ndarray
+    """Take-up, int8 0/1."""
+    offer: np.ndarray
+    """Offer, int8 0/1."""
+    stratum: np.ndarray
+    """Stratum label per row (int when every label is an integer, else str)."""
+    cluster: np.ndarray | None
+    """Cluster label per row (str), or None."""
+    offer_probability: np.ndarray | None
+    """Design offer probability per row, when the spec names a column for it."""
+    covariates: dict[str, np.ndarray]
+    """Covariate name -> float array, NaN where missing."""
+    file_index: np.ndarray
+    """Index into `files` of each row."""
+    row: np.ndarray
+    """1-based data row within its file."""
+    line: np.ndarray
+    """Line within its file (CSV), 0 for Parquet."""
+    n_read: int
+    """Rows read before any was dropped."""
+    dropped: tuple[tuple[str, int], ...]
+    """(column, rows dropped because it was missing there), for incomplete rows."""
+    n_dropped: int
+    """Incomplete rows dropped (a row missing several columns counts once)."""
+
+    @property
+    def n_rows(self) -> int:
+        """Rows kept."""
+        return int(self.offer.size)
+
+    def where(self, i: int) -> str:
+        """Return "file, row r (line l)" for kept row `i`."""
+        name = self.files[int(self.file_index[i])].path.name
+        return f"{name}, {_row_text(int(self.row[i]), int(self.line[i]))}"
+
+
+def _row_text(row: int, line: int) -> str:
+    return f"row {row} (line {line})" if line else f"row {row}"
+
+
+def file_fingerprint(path: Path, rows: int) -> InputFile:
+    """Return the size and SHA-256 of `path`, read in chunks.
+
+    Parameters
+    ----------
+    path : Path
+        The file.
+    rows : int
+        Data rows it holds (recorded, not counted here).
+
+    Returns
+    -------
+    InputFile
+        The fingerprint.
+    """
+    digest = hashlib.sha256()
+    with path.open("rb") as handle:
+        for chunk in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(chunk)
+    return InputFile(path, path.stat().st_size, digest.hexdigest(), rows)
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class _Table:
+    header: list[str]
+    columns: dict[str, list[Any]]
+    rows: np.ndarray
+    lines: np.ndarray
+    header_line: str
+
+
+def read_table(path: Path, wanted: Sequence[str] | None = None) -> _Table:
+    """Read a CSV or Parquet file into columns of raw cells.
+
+    Parameters
+    ----------
+    path : Path
+        The file; its suffix picks the reader.
+    wanted : sequence of str, optional
+        Columns to keep (default all). Absent names are skipped; the caller checks them.
+
+    Returns
+    -------
+    _Table
+        Header, raw cells per kept column, data row and line numbers.
+
+    Raises
+    ------
+    DataError
+        When the file is empty, unreadable, not UTF-8, has ragged rows, or no data rows.
+    """
+    if path.suffix.lower() == ".csv":
+        return _read_csv(path, wanted)
+    return _read_parquet(path, wanted)
+
+
+def _read_csv(path: Path, wanted: Sequence[str] | None) -> _Table:
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise DataError(path, None, (), f"cannot read the file ({exc.strerror})") from None
+    if not raw.strip():
+        raise DataError(path, None, (), "the file is empty",
+                        "export the data again; a CSV needs a header line and data rows")
+    if raw.startswith(b"PAR1"):
+        raise DataError(path, None, (), "the file is Parquet data with a .csv name",
+                        "rename it to end in .parquet")
+    if b"\x00" in raw[:65536]:
+        raise DataError(path, None, (), "the file is not text (it holds binary data)",
+                        "if it is a spreadsheet, save it as CSV (comma-separated) first")
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise DataError(path, None, (), f"the file is not UTF-8 text (bad byte at offset "
+                        f"{exc.start})", "save it as CSV UTF-8") from None
+    reader = csv.reader(io.StringIO(text, newline=""))
+    header: list[str] | None = None
+    header_line = ""
+    records: list[list[str]] = []
+    lines: list[int] = []
+    last = 0
+    try:
+        for record in reader:
+            start, last = last + 1, reader.line_num
+            if not record or all(not field.strip() for field in record):
+                continue
+            if header is None:
+                header = [field.strip() for field in record]
+                header_line = ",".join(record)
+                _check_delimiter(path, header, header_line)
+                continue
+            if len(record) != len(header):
+                raise DataError(path, None, (len(records) + 1,),
+                                f"line {start} has {len(record)} fields but the header has "
+                                f"{len(header)}", "check for a stray comma or an unclosed quote "
+                                "on that line; values with commas must be quoted")
+            records.append(record)
+            lines.append(start)
+    except csv.Error as exc:
+        raise DataError(path, None, (), f"cannot parse the file near line {reader.line_num} "
+                        f"({exc})", "check the quoting on that line") from None
+    assert header is not None
+    if not records:
+        raise DataError(path, None, (), "the file has a header but no data rows")
+    keep = [(name, j) for j, name in enumerate(header) if wanted is None or name in wanted]
+    columns = {name: [rec[j] for rec in records] for name, j in keep}
+    return _Table(header, columns, np.arange(1, len(records) + 1), np.asarray(lines),
+                  header_line)
+
+
+def _check_delimiter(path: Path, header: list[str], header_line: str) -> None:
+    if len(header) > 1:
+        return
+    for delim, plural in _OTHER_DELIMITERS.items():
+        if delim in header_line:
+            raise DataError(path, None, (), f"the fields seem to be separated by {plural}, not "
+                            "commas (the header reads as one column)",
+                            "save the file as comma-separated CSV")
+    raise DataError(path, None, (), "the header has a single column; strativ needs at least "
+                    "offer, take-up, stratum and outcome columns separated by commas",
+                    "save the file as comma-separated CSV")
+
+
+def _read_parquet(path: Path, wanted: Sequence[str] | None) -> _Table:
+    import pyarrow.parquet as pq
+
+    if path.stat().st_size == 0:
+        raise DataError(path, None, (), "the file is empty")
+    try:
+        header = list(pq.read_schema(path).names)
+        names = [n for n in header if wanted is None or n in wanted]
+        table = pq.read_table(path, columns=names)
+    except Exception as exc:  # pyarrow raises several types for a damaged file
+        raise DataError(path, None, (), f"cannot be read as Parquet ({exc})",
+                        "check that the file is complete and really Parquet") from None
+    if table.num_rows == 0:
+        raise DataError(path, None, (), "the file has no data rows")
+    columns = {name: table.column(name).to_pylist() for name in names}
+    return _Table(header, columns, np.arange(1, table.num_rows + 1),
+                  np.zeros(table.num_rows, dtype=np.int64), "")
+
+
+def _spec_roles(spec: Spec) -> dict[str, tuple[str, int | None]]:
+    """Column name -> (role phrase, spec line) for every column the spec names."""
+    roles: dict[str, tuple[str, int | None]] = {}
+    cols = spec.columns
+    for role in ("outcome", "stratum", "covariates"):
+        names = getattr(cols, role)
+        for i, name in enumerate(names):
+            line = spec.line_of("columns", role, i) if len(names) > 1 else \
+                spec.line_of("columns", role)
+            roles[name] = (f"columns.{role}", line)
+    for role in ("take_up", "offer", "cluster"):
+        name = getattr(cols, role)
+        if name is not None:
+            roles[name] = (f"columns.{role}", spec.line_of("columns", role))
+    if spec.offer_probability.column is not None:
+        roles[spec.offer_probability.column] = (
+            "design.offer_probability", spec.line_of("design", "offer_probability"))
+    return roles
+
+
+def _check_columns(path: Path, table: _Table, spec: Spec,
+                   roles: dict[str, tuple[str, int | None]]) -> None:
+    present = [h for h in table.header if h]
+    for name, (role, line) in roles.items():
+        count = table.header.count(name)
+        if count > 1:
+            raise DataError(path, name, (), f"the header has {count} columns named '{name}'",
+                            "rename the duplicates so that each column name is unique")
+        if count == 1:
+            continue
+        at = f" (named as {role} in {spec.path.name}, line {line})" if line else ""
+        for delim, plural in _OTHER_DELIMITERS.items():
+            if delim in table.header_line and name in [
+                    f.strip() for f in table.header_line.split(delim)]:
+                raise DataError(path, None, (), f"the fields seem to be separated by {plural}, "
+                                f"not commas: no column '{name}'{at}",
+                                "save the file as comma-separated CSV")
+        near = suggest(name, present)
+        shown = ", ".join(present[:20]) + (", ..." if len(present) > 20 else "")
+        hint = f"{near} Columns in the file: {shown}" if near else f"columns in the file: {shown}"
+        raise DataError(path, name, (), f"no column '{name}'{at}", hint)
+
+
+def _bad_values(path: Path, column: str, table: _Table, parsed: Parsed, cells: list[Any],
+                what: str, hint: str) -> DataError:
+    shown = [int(i) for i in parsed.invalid[:_SHOWN]]
+    found = ", ".join(f"{cells[i]!r} in {_row_text(int(table.rows[i]), int(table.lines[i]))}"
+                      for i in shown)
+    more = f" ({parsed.invalid.size} rows in all)" if parsed.invalid.size > _SHOWN else ""
+    return DataError(path, column, [int(table.rows[i]) for i in shown],
+                     f"{what}; found {found}{more}", hint)
+
+
+def _parse_file(path: Path, table: _Table, spec: Spec) -> dict[str, Parsed]:
+    cols = spec.columns
+    out: dict[str, Parsed] = {}
+    for name in (cols.offer, cols.take_up):
+        parsed = parse_binary(table.columns[name])
+        if parsed.invalid.size:
+            raise _bad_values(path, name, table, parsed, table.columns[name],
+                              "values must be 0/1 or true/false",
+                              "recode the column to 0 and 1 (1 = offered / took it up)")
+        out[name] = parsed
+    numeric = list(cols.outcome) + list(cols.covariates)
+    if spec.offer_probability.column is not None:
+        numeric.append(spec.offer_probability.column)
+    for name in numeric:
+        parsed = parse_number(table.columns[name])
+        if parsed.invalid.size:
+            role = "outcome" if name in cols.outcome else \
+                "covariate" if name in cols.covariates else "offer probability"
+            raise _bad_values(path, name, table, parsed, table.columns[name],
+                              f"the {role} column must be numeric",
+                              "fix or blank out these values (blank = missing)")
+        out[name] = parsed
+    if spec.offer_probability.column is not None:
+        name = spec.offer_probability.column
+        parsed = out[name]
+        bad = np.flatnonzero(~parsed.missing & ~((parsed.values > 0) & (parsed.values < 1)))
+        if bad.size:
+            raise _bad_values(path, name, table, Parsed(parsed.values, parsed.missing, bad),
+                              table.columns[name], "design offer probabilities must lie "
+                              "strictly between 0 and 1", "give each unit its stratum's "
+                              "probability of being offered")
+    for name in list(cols.stratum) + ([cols.cluster] if cols.cluster else []):
+        out[name] = parse_label(table.columns[name])
+    return out
+
+
+def _incomplete_columns(spec: Spec) -> list[str]:
+    cols = spec.columns
+    names = [cols.offer, cols.take_up, *cols.stratum]
+    if cols.cluster is not None:
+        names.append(cols.cluster)
+    if spec.offer_probability.column is not None:
+        names.append(spec.offer_probability.column)
+    return names
+
+
+def load_data(spec: Spec) -> Dataset:
+    """Read every data file of `spec` and apply the data rules.
+
+    Parameters
+    ----------
+    spec : Spec
+        A validated spec.
+
+    Returns
+    -------
+    Dataset
+        The kept rows, role by role, with fingerprints and drop counts.
+
+    Raises
+    ------
+    DataError
+        On an empty, unreadable or wrongly delimited file; a missing or duplicated column; an
+        offer or take-up value other than 0/1 or true/false; a non-numeric outcome, covariate
+        or probability; or a missing offer, take-up, stratum, cluster or probability value
+        when the spec does not drop incomplete rows.
+    """
+    roles = _spec_roles(spec)
+    incomplete_names = _incomplete_columns(spec)
+    pieces: list[dict[str, np.ndarray]] = []
+    files: list[InputFile] = []
+    dropped = dict.fromkeys(incomplete_names, 0)
+    n_read = n_dropped = 0
+    for index, path in enumerate(spec.data):
+        table = read_table(path, list(roles))
+        _check_columns(path, table, spec, roles)
+        parsed = _parse_file(path, table, spec)
+        n = table.rows.size
+        n_read += n
+        files.append(file_fingerprint(path, n))
+        incomplete = np.zeros(n, dtype=bool)
+        for name in incomplete_names:
+            miss = parsed[name].missing
+            if miss.any() and not spec.drop_incomplete_rows:
+                first = np.flatnonzero(miss)[:_SHOWN]
+                rows = ", ".join(_row_text(int(table.rows[i]), int(table.lines[i]))
+                                 for i in first)
+                raise DataError(path, name, [int(table.rows[i]) for i in first],
+                                f"{int(miss.sum())} missing value(s), first in {rows}",
+                                "fill them in, or add 'missing: {drop_incomplete_rows: true}' "
+                                "to the spec to drop such rows (they are counted)")
+            dropped[name] += int((miss & ~incomplete).sum())
+            incomplete |= miss
+        n_dropped += int(incomplete.sum())
+        keep = ~incomplete
+        piece = {name: p.values[keep] for name, p in parsed.items()}
+        piece["__file"] = np.full(int(keep.sum()), index, dtype=np.int64)
+        piece["__row"] = table.rows[keep]
+        piece["__line"] = table.lines[keep]
+        pieces.append(piece)
+    return _assemble(spec, files, pieces, n_read, dropped, n_dropped)
+
+
+def _assemble(spec: Spec, files: list[InputFile], pieces: list[dict[str, np.ndarray]],
+              n_read: int, dropped: dict[str, int], n_dropped: int) -> Dataset:
+    def stack(name: str) -> np.ndarray:
+        return np.concatenate([piece[name] for piece in pieces])
+
+    cols = spec.columns
+    n_kept = sum(piece["__row"].size for piece in pieces)
+    if n_kept == 0:
+        raise DataError(None, None, (), f"no rows left: all {n_read} rows miss an offer, "
+                        "take-up or stratum value", "fill in the missing values")
+    parts = [stack(name).astype(str) for name in cols.stratum]
+    labels = parts[0] if len(parts) == 1 else \
+        np.asarray([STRATUM_JOIN.join(p) for p in zip(*parts, strict=True)], dtype=object)
+    stratum = _integer_labels(labels) if len(parts) == 1 else labels
+    return Dataset(
+        files=tuple(files),
+        outcomes={name: stack(name) for name in cols.outcome},
+        take_up=stack(cols.take_up),
+        offer=stack(cols.offer),
+        stratum=stratum,
+        cluster=None if cols.cluster is None else stack(cols.cluster).astype(object),
+        offer_probability=None if spec.offer_probability.column is None
+        else stack(spec.offer_probability.column),
+        covariates={name: stack(name) for name in cols.covariates},
+        file_index=stack("__file"),
+        row=stack("__row"),
+        line=stack("__line"),
+        n_read=n_read,
+        dropped=tuple((name, count) for name, count in dropped.items() if count),
+        n_dropped=n_dropped,
+    )
+
+
+def _integer_labels(labels: np.ndarray) -> np.ndarray:
+    """Turn text labels into ints when every label is a plain integer (so 2 sorts before 10)."""
+    out = np.empty(labels.size, dtype=object)
+    for i, text in enumerate(labels):
+        try:
+            number = int(text)
+        except ValueError:
+            return labels.astype(object)
+        if str(number) != text:
+            return labels.astype(object)
+        out[i] = number
+    return out

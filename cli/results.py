@@ -1,0 +1,272 @@
+"""Result files: results.json and strata.csv, written atomically, never over an input.
+
+Every number in these files is copied from the estimator results' ``to_dict()``; nothing is
+recomputed here. A JSON Schema for results.json ships as ``results.schema.json`` beside this
+module.
+"""
+
+from __future__ import annotations
+
+import csv
+import fnmatch
+import io
+import json
+import os
+import tempfile
+from datetime import datetime, timezone
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+from .errors import UsageError
+from .runner import Run
+from .spec import Spec
+
+__all__ = [
+    "SCHEMA_VERSION",
+    "FILE_NAMES",
+    "STRATA_COLUMNS",
+    "output_paths",
+    "check_output_paths",
+    "results_document",
+    "strata_table",
+    "write_outputs",
+    "load_schema",
+]
+
+SCHEMA_VERSION = "1.0"
+"""Version of the results.json layout; bumped when a field changes meaning or is removed."""
+FILE_NAMES = {"json": "results.json", "csv": "strata.csv"}
+"""File written for each output format."""
+STRATA_COLUMNS = (
+    "outcome", "stratum", "used", "exclusion_reason", "n", "n_offered", "n_not_offered",
+    "offer_share", "mean_outcome_offered", "mean_outcome_not_offered", "take_up_offered",
+    "take_up_not_offered", "itt", "first_stage", "effect", "effect_std_error", "effect_reason",
+    "weight_fixed_effects", "weight_complier", "always_takers", "never_takers", "compliers",
+    "gap_contribution",
+)
+"""Columns of strata.csv, in order."""
+
+
+def tool_version() -> str:
+    """Return the installed strativ version, or "unknown" when not installed."""
+    from . import __version__
+
+    return __version__
+
+
+def load_schema() -> dict[str, Any]:
+    """Return the JSON Schema of results.json shipped with the package."""
+    text = resources.files("strativ.cli").joinpath("results.schema.json").read_text("utf-8")
+    return json.loads(text)
+
+
+def output_paths(out_dir: Path, formats: tuple[str, ...]) -> list[Path]:
+    """Return the files a run writes into `out_dir` for `formats`."""
+    return [out_dir / FILE_NAMES[f] for f in formats]
+
+
+def check_output_paths(spec: Spec, out_dir: Path, formats: tuple[str, ...]) -> None:
+    """Refuse an output directory that would write into or over an input file.
+
+    Parameters
+    ----------
+    spec : Spec
+        The spec (its file and its data files are the inputs).
+    out_dir : Path
+        The resolved output directory.
+    formats : tuple of str
+        Output formats to write.
+
+    Raises
+    ------
+    UsageError
+        When the output directory is an existing file, when an output file would replace the
+        spec or a data file, or when a data glob of the spec would match an output file (so
+        that a later run would read results as data).
+    """
+    inputs = {p.resolve() for p in (spec.path, *spec.data)}
+    if out_dir.resolve() in inputs or (out_dir.exists() and not out_dir.is_dir()):
+        raise UsageError(f"the output directory {out_dir} is a file",
+                         "choose a directory with --out or output.dir")
+    for target in output_paths(out_dir, formats):
+        resolved = target.resolve()
+        if resolved in inputs:
+            raise UsageError(f"writing {target} would overwrite an input file",
+                             "choose another output directory with --out or output.dir")
+        for entry in spec.data_entries:
+            if set("*?[") & set(entry):
+                pattern = str(Path(entry).expanduser() if Path(entry).is_absolute()
+                              else spec.path.parent / entry)
+                if fnmatch.fnmatch(str(resolved), pattern) or \
+                        fnmatch.fnmatch(str(target), pattern):
+                    raise UsageError(f"{target} would match the data pattern '{entry}', so a "
+                                     "later run would read the results as data",
+                                     "choose another output directory with --out or output.dir")
+
+
+def _now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+
+
+def results_document(run: Run, *, created: str | None = None, out_dir: Path | None = None,
+                     formats: tuple[str, ...] | None = None) -> dict[str, Any]:
+    """Assemble the contents of results.json.
+
+    Parameters
+    ----------
+    run : Run
+        The fitted run.
+    created : str, optional
+        ISO 8601 timestamp to record (default: now, UTC).
+    out_dir : Path, optional
+        Output directory actually used (recorded in the resolved spec instead of output.dir
+        when the command line overrode it).
+    formats : tuple of str, optional
+        Output formats actually written (likewise).
+
+    Returns
+    -------
+    dict
+        JSON-ready data; see results.schema.json for the layout.
+    """
+    data = run.dataset
+    estimates, strata, exclusions, comparisons = [], [], [], []
+    for result in run.outcomes:
+        comp = result.comparison.to_dict()
+        for estimate in comp["estimates"]:
+            estimates.append({"outcome": result.outcome, **estimate})
+        for row in comp["strata"]["rows"]:
+            strata.append({"outcome": result.outcome, **row})
+        for excluded in comp["strata"]["excluded"]:
+            exclusions.append({"outcome": result.outcome, **excluded})
+        comparisons.append({
+            "outcome": result.outcome,
+            "rows_used": result.cells.n_units,
+            "rows_missing_outcome": result.missing,
+            "gap": comp["gap"],
+            "size_weighted": comp["size_weighted"],
+            "single_unit_cells": comp["strata"]["single_unit_cells"],
+            "notes": comp["notes"],
+        })
+    spec = run.spec.to_dict()
+    if out_dir is not None:
+        spec["output"]["dir"] = str(out_dir)
+    if formats is not None:
+        spec["output"]["formats"] = list(formats)
+    probabilities = None if run.offer_probability is None else [
+        {"stratum": label, "probability": prob} for label, prob in run.offer_probability.items()]
+    return {
+        "schema_version": SCHEMA_VERSION,
+        "tool": {"name": "strativ", "version": tool_version()},
+        "created": created or _now(),
+        "title": run.spec.title,
+        "spec": spec,
+        "inputs": [f.to_dict() for f in data.files],
+        "rows": {
+            "read": data.n_read,
+            "kept": data.n_rows,
+            "dropped_incomplete": data.n_dropped,
+            "dropped_by_column": [{"column": c, "rows": n} for c, n in data.dropped],
+        },
+        "offer_probability": probabilities,
+        "estimates": estimates,
+        "comparisons": comparisons,
+        "strata": strata,
+        "exclusions": exclusions,
+        "attrition": [a.to_dict() for r in run.outcomes for a in r.attrition],
+        "warnings": list(run.warnings),
+    }
+
+
+def _cell(value: Any) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    return str(value)
+
+
+def strata_table(run: Run) -> str:
+    """Return strata.csv: one line per (outcome, stratum), excluded strata included.
+
+    Parameters
+    ----------
+    run : Run
+        The fitted run.
+
+    Returns
+    -------
+    str
+        CSV text with the header `STRATA_COLUMNS`; numbers are the core's, in full precision.
+    """
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow(STRATA_COLUMNS)
+    for result in run.outcomes:
+        table = result.comparison.strata.to_dict()
+        for row in table["rows"]:
+            record = {"outcome": result.outcome, "stratum": row["label"], "used": True,
+                      "exclusion_reason": None, **row}
+            writer.writerow([_cell(record.get(c)) for c in STRATA_COLUMNS])
+        for row in table["excluded"]:
+            record = {"outcome": result.outcome, "stratum": row["label"], "used": False,
+                      "exclusion_reason": row["reason"], "n": row["n"]}
+            writer.writerow([_cell(record.get(c)) for c in STRATA_COLUMNS])
+    return buffer.getvalue()
+
+
+def write_outputs(run: Run, out_dir: Path, formats: tuple[str, ...], *,
+                  created: str | None = None) -> list[Path]:
+    """Write the result files atomically (temporary file in `out_dir`, then rename).
+
+    Parameters
+    ----------
+    run : Run
+        The fitted run.
+    out_dir : Path
+        Output directory; created when missing.
+    formats : tuple of str
+        ``"json"`` and/or ``"csv"``.
+    created : str, optional
+        Timestamp for results.json.
+
+    Returns
+    -------
+    list of Path
+        The files written.
+
+    Raises
+    ------
+    UsageError
+        When the output would overwrite an input, or the directory cannot be written.
+    """
+    check_output_paths(run.spec, out_dir, formats)
+    texts = {}
+    if "json" in formats:
+        document = results_document(run, created=created, out_dir=out_dir, formats=formats)
+        texts["json"] = json.dumps(document, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+    if "csv" in formats:
+        texts["csv"] = strata_table(run)
+    made_dir = not out_dir.exists()
+    temps: list[tuple[str, Path]] = []
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+        for fmt in formats:
+            fd, tmp = tempfile.mkstemp(prefix=".strativ-", suffix=".tmp", dir=out_dir)
+            temps.append((tmp, out_dir / FILE_NAMES[fmt]))
+            with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
+                handle.write(texts[fmt])
+                handle.flush()
+                os.fsync(handle.fileno())
+        for tmp, target in temps:
+            os.replace(tmp, target)
+    except OSError as exc:
+        for tmp, _ in temps:
+            if os.path.exists(tmp):
+                os.unlink(tmp)
+        if made_dir and out_dir.is_dir() and not any(out_dir.iterdir()):
+            out_dir.rmdir()
+        raise UsageError(f"cannot write the results into {out_dir} ({exc.strerror})",
+                         "choose a writable directory with --out or output.dir") from None
+    return [target for _, target in temps]

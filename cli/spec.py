@@ -1,0 +1,548 @@
+"""The YAML spec: load it with line numbers, validate every key, resolve paths.
+
+`load_spec` is the only entry point. It returns a frozen `Spec` whose paths are absolute and
+whose defaults are filled in, or raises `SpecError` naming the spec line, the key, the value
+found and the nearest valid key ("did you mean").
+"""
+
+from __future__ import annotations
+
+import difflib
+import glob
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import yaml
+
+from .errors import SpecError
+
+__all__ = [
+    "ESTIMATORS",
+    "VARIANCES",
+    "ASSIGNMENTS",
+    "SAMPLINGS",
+    "FORMATS",
+    "DATA_SUFFIXES",
+    "Columns",
+    "OfferProbability",
+    "Spec",
+    "load_spec",
+    "suggest",
+]
+
+ESTIMATORS = ("fixed_effects", "weighted", "interacted")
+VARIANCES = ("stratified", "robust", "robust_scaled", "cluster")
+ASSIGNMENTS = ("block", "independent")
+SAMPLINGS = ("fixed", "random")
+FORMATS = ("json", "csv")
+DATA_SUFFIXES = (".csv", ".parquet", ".pq")
+DEFAULT_OUTPUT_DIR = "strativ_out"
+
+_SECTIONS: dict[str, tuple[str, ...] | None] = {
+    "title": None,
+    "data": None,
+    "columns": ("outcome", "take_up", "offer", "stratum", "cluster", "covariates"),
+    "design": ("offer_probability", "assignment", "sampling"),
+    "estimators": None,
+    "inference": ("variance", "level"),
+    "output": ("dir", "formats"),
+    "missing": ("drop_incomplete_rows",),
+}
+_REQUIRED_COLUMNS = ("outcome", "take_up", "offer", "stratum")
+_GLOB_CHARS = set("*?[")
+
+KeyPath = tuple[Any, ...]
+
+
+def suggest(word: str, choices: list[str] | tuple[str, ...]) -> str | None:
+    """Return a "did you mean" phrase for the choice nearest to `word`, or None.
+
+    Parameters
+    ----------
+    word : str
+        What the user wrote.
+    choices : sequence of str
+        The valid names.
+
+    Returns
+    -------
+    str or None
+        ``"did you mean 'x'?"`` (or two names) when a close match exists.
+    """
+    lowered = {c.lower(): c for c in choices}
+    if word.lower() in lowered and lowered[word.lower()] != word:
+        return f"did you mean '{lowered[word.lower()]}'?"
+    close = difflib.get_close_matches(word, list(choices), n=2, cutoff=0.6)
+    if not close:
+        return None
+    return "did you mean " + " or ".join(f"'{c}'" for c in close) + "?"
+
+
+@dataclass(frozen=True, slots=True)
+class Columns:
+    """Column roles named in the spec."""
+
+    outcome: tuple[str, ...]
+    """Outcome columns; each is analysed separately."""
+    take_up: str
+    """Binary take-up (treatment received)."""
+    offer: str
+    """Binary randomized offer (the instrument)."""
+    stratum: tuple[str, ...]
+    """Columns whose combination defines the randomization stratum."""
+    cluster: str | None
+    """Optional cluster column (the unit of assignment)."""
+    covariates: tuple[str, ...]
+    """Baseline covariates: validated and recorded; not yet used by the estimators."""
+
+    def roles(self) -> list[tuple[str, str]]:
+        """Return (role, column) pairs in spec order, one per named column."""
+        pairs = [("outcome", c) for c in self.outcome]
+        pairs += [("take_up", self.take_up), ("offer", self.offer)]
+        pairs += [("stratum", c) for c in self.stratum]
+        if self.cluster is not None:
+            pairs.append(("cluster", self.cluster))
+        pairs += [("covariates", c) for c in self.covariates]
+        return pairs
+
+
+@dataclass(frozen=True, slots=True)
+class OfferProbability:
+    """Where the design offer probabilities come from."""
+
+    source: str
+    """``"estimated"`` (realized offer shares), ``"column"`` or ``"mapping"``."""
+    column: str | None = None
+    """The column holding each unit's design probability (source ``"column"``)."""
+    by_stratum: tuple[tuple[str, float], ...] = ()
+    """(stratum label as written, probability) pairs (source ``"mapping"``)."""
+    lines: tuple[int | None, ...] = ()
+    """Spec line of each pair in `by_stratum`."""
+
+    def to_dict(self) -> Any:
+        """Return the JSON form: ``"estimated"``, ``{"column": name}`` or a label mapping."""
+        if self.source == "estimated":
+            return "estimated"
+        if self.source == "column":
+            return {"column": self.column}
+        return {label: p for label, p in self.by_stratum}
+
+
+@dataclass(frozen=True, slots=True)
+class Spec:
+    """A validated spec with defaults filled in and paths resolved."""
+
+    path: Path
+    """The spec file (absolute)."""
+    title: str
+    """Title shown in the report (default: the spec file's stem)."""
+    data: tuple[Path, ...]
+    """Data files (absolute), in the order given; glob matches sorted by name."""
+    data_entries: tuple[str, ...]
+    """The `data` entries as written in the spec."""
+    columns: Columns
+    """Column roles."""
+    offer_probability: OfferProbability
+    """Design offer probabilities."""
+    assignment: str
+    """``"block"`` (fixed offer count per stratum) or ``"independent"``."""
+    sampling: str
+    """``"random"`` (units sampled from a population) or ``"fixed"``."""
+    estimators: tuple[str, ...]
+    """Estimators to fit, in report order."""
+    variance: str
+    """Variance flavour passed to the estimators."""
+    level: float
+    """Confidence level of intervals."""
+    output_dir: Path
+    """Directory for result files (absolute)."""
+    formats: tuple[str, ...]
+    """Result files to write: ``"json"`` (results.json), ``"csv"`` (strata.csv)."""
+    drop_incomplete_rows: bool
+    """Drop rows missing offer, take-up, stratum (or cluster, probability) instead of failing."""
+    lines: Mapping[KeyPath, int] = field(default_factory=dict, repr=False, compare=False)
+    """Spec line of each key path, for messages raised after loading."""
+
+    def line_of(self, *keys: Any) -> int | None:
+        """Return the spec line of `keys` or of its nearest present parent key."""
+        return _line_of(self.lines, tuple(keys))
+
+    def error(self, keys: KeyPath, message: str, hint: str | None = None) -> SpecError:
+        """Return a `SpecError` located at the spec line of `keys`."""
+        return SpecError(self.path, self.line_of(*keys), _dotted(keys), message, hint)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the resolved spec as JSON-ready data (paths as strings)."""
+        cols = self.columns
+        return {
+            "path": str(self.path),
+            "title": self.title,
+            "data": list(self.data_entries),
+            "data_files": [str(p) for p in self.data],
+            "columns": {
+                "outcome": list(cols.outcome),
+                "take_up": cols.take_up,
+                "offer": cols.offer,
+                "stratum": list(cols.stratum),
+                "cluster": cols.cluster,
+                "covariates": list(cols.covariates),
+            },
+            "design": {
+                "offer_probability": self.offer_probability.to_dict(),
+                "assignment": self.assignment,
+                "sampling": self.sampling,
+            },
+            "estimators": list(self.estimators),
+            "inference": {"variance": self.variance, "level": self.level},
+            "output": {"dir": str(self.output_dir), "formats": list(self.formats)},
+            "missing": {"drop_incomplete_rows": self.drop_incomplete_rows},
+        }
+
+
+def _dotted(keys: KeyPath) -> str | None:
+    if not keys:
+        return None
+    text = str(keys[0])
+    for k in keys[1:]:
+        text += f"[{k + 1}]" if isinstance(k, int) else f".{k}"
+    return text
+
+
+def _line_of(lines: Mapping[KeyPath, int], keys: KeyPath) -> int | None:
+    while keys:
+        if keys in lines:
+            return lines[keys]
+        keys = keys[:-1]
+    return lines.get((), None)
+
+
+def _compose(text: str, path: Path) -> tuple[Any, dict[KeyPath, int]]:
+    """Parse YAML text into Python data plus the line of every key and list item."""
+    loader = yaml.SafeLoader(text)
+    try:
+        node = loader.get_single_node()
+        if node is None:
+            raise SpecError(path, None, None, "the spec is empty",
+                            "start from `strativ init DATA`, or give at least 'data' and 'columns'")
+        lines: dict[KeyPath, int] = {(): node.start_mark.line + 1}
+        _index(loader, node, (), lines, path)
+        data = loader.construct_document(node)
+    except yaml.MarkedYAMLError as exc:
+        mark = exc.problem_mark or exc.context_mark
+        problem = exc.problem or exc.context or "invalid YAML"
+        tabs = "\\t" in problem or "\t" in problem
+        hint = "indent with spaces; YAML does not allow tabs" if tabs \
+            else "check the indentation and the ':' after each key"
+        raise SpecError(path, mark.line + 1 if mark else None, None,
+                        f"not valid YAML: {problem}", hint) from None
+    except yaml.YAMLError as exc:
+        raise SpecError(path, None, None, f"not valid YAML: {exc}") from None
+    finally:
+        loader.dispose()
+    return data, lines
+
+
+def _index(loader: yaml.SafeLoader, node: yaml.Node, keys: KeyPath,
+           lines: dict[KeyPath, int], path: Path) -> None:
+    if isinstance(node, yaml.MappingNode):
+        loader.flatten_mapping(node)
+        seen: dict[Any, int] = {}
+        for key_node, value_node in node.value:
+            line = key_node.start_mark.line + 1
+            if not isinstance(key_node, yaml.ScalarNode):
+                raise SpecError(path, line, _dotted(keys), "a key must be a plain name")
+            key = loader.construct_object(key_node)
+            if key in seen:
+                raise SpecError(path, line, _dotted(keys + (key,)),
+                                f"key '{key}' appears twice (lines {seen[key]} and {line})",
+                                "keep one of them")
+            seen[key] = line
+            lines[keys + (key,)] = line
+            _index(loader, value_node, keys + (key,), lines, path)
+    elif isinstance(node, yaml.SequenceNode):
+        for i, item in enumerate(node.value):
+            lines[keys + (i,)] = item.start_mark.line + 1
+            _index(loader, item, keys + (i,), lines, path)
+
+
+class _Checker:
+    """Validation helpers that know the spec path and its line table."""
+
+    def __init__(self, path: Path, lines: dict[KeyPath, int]) -> None:
+        self.path = path
+        self.lines = lines
+
+    def error(self, keys: KeyPath, message: str, hint: str | None = None) -> SpecError:
+        return SpecError(self.path, _line_of(self.lines, keys), _dotted(keys), message, hint)
+
+    def mapping(self, value: Any, keys: KeyPath, allowed: tuple[str, ...]) -> dict[str, Any]:
+        where = f"'{_dotted(keys)}'" if keys else "the spec"
+        if value is None:
+            return {}
+        if not isinstance(value, dict):
+            raise self.error(keys, f"{where} must be a mapping of keys, found {_kind(value)}",
+                             "write one 'key: value' per line, indented under it")
+        for key in value:
+            if not isinstance(key, str):
+                raise self.error(keys + (key,), f"key {key!r} under {where} is not a name")
+            if key not in allowed:
+                hint = suggest(key, allowed)
+                home = [s for s, subs in _SECTIONS.items() if subs and key in subs]
+                if home and home[0] != (keys[0] if keys else None):
+                    hint = f"'{key}' belongs under '{home[0]}'"
+                if hint is None:
+                    hint = "valid keys: " + ", ".join(allowed)
+                raise self.error(keys + (key,), f"unknown key '{key}' under {where}", hint)
+        return value
+
+    def name(self, value: Any, keys: KeyPath, what: str) -> str:
+        if isinstance(value, bool) or not isinstance(value, (str, int)):
+            raise self.error(keys, f"'{_dotted(keys)}' must be {what}, found {_kind(value)}")
+        text = str(value).strip()
+        if not text:
+            raise self.error(keys, f"'{_dotted(keys)}' is empty", f"give {what}")
+        return text
+
+    def names(self, value: Any, keys: KeyPath, what: str) -> tuple[str, ...]:
+        if isinstance(value, list):
+            if not value:
+                raise self.error(keys, f"'{_dotted(keys)}' is an empty list", f"give {what}")
+            out = tuple(self.name(v, keys + (i,), what) for i, v in enumerate(value))
+        else:
+            out = (self.name(value, keys, what),)
+        for i, item in enumerate(out):
+            if item in out[:i]:
+                raise self.error(keys + (i,), f"'{item}' is listed twice in '{_dotted(keys)}'")
+        return out
+
+    def choice(self, value: Any, keys: KeyPath, choices: tuple[str, ...], default: str) -> str:
+        if value is None:
+            return default
+        if not isinstance(value, str) or value not in choices:
+            hint = suggest(str(value), choices) if isinstance(value, str) else None
+            raise self.error(keys, f"'{_dotted(keys)}' is {value!r}; expected one of "
+                             + ", ".join(choices), hint)
+        return value
+
+    def choices(self, value: Any, keys: KeyPath, choices: tuple[str, ...],
+                default: tuple[str, ...]) -> tuple[str, ...]:
+        if value is None:
+            return default
+        items = value if isinstance(value, list) else [value]
+        if not items:
+            raise self.error(keys, f"'{_dotted(keys)}' is an empty list",
+                             "list at least one of " + ", ".join(choices))
+        out: list[str] = []
+        for i, item in enumerate(items):
+            where = keys + (i,) if isinstance(value, list) else keys
+            if not isinstance(item, str) or item not in choices:
+                hint = suggest(str(item), choices) if isinstance(item, str) else None
+                raise self.error(where, f"'{_dotted(keys)}' has {item!r}; expected one of "
+                                 + ", ".join(choices), hint)
+            if item in out:
+                raise self.error(where, f"'{item}' is listed twice in '{_dotted(keys)}'")
+            out.append(item)
+        return tuple(out)
+
+
+def _kind(value: Any) -> str:
+    if value is None:
+        return "nothing"
+    if isinstance(value, bool):
+        return f"true/false ({value})"
+    if isinstance(value, dict):
+        return "a mapping"
+    if isinstance(value, list):
+        return "a list"
+    return f"{type(value).__name__} {value!r}"
+
+
+def load_spec(path: Path | str) -> Spec:
+    """Read, validate and resolve a spec file.
+
+    Parameters
+    ----------
+    path : Path or str
+        The YAML spec. Relative paths inside it are relative to its directory.
+
+    Returns
+    -------
+    Spec
+        The validated spec, defaults filled in.
+
+    Raises
+    ------
+    SpecError
+        When the file cannot be read, is not YAML, has an unknown key, a missing required
+        key, a value of the wrong type or outside its choices, or names a data file that
+        does not exist.
+    """
+    path = Path(path).expanduser().resolve()
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise SpecError(path, None, None, "the spec file does not exist") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise SpecError(path, None, None, f"cannot read the spec file ({exc})",
+                        "save it as UTF-8 text") from None
+    raw, lines = _compose(text, path)
+    check = _Checker(path, lines)
+    top = check.mapping(raw, (), tuple(_SECTIONS))
+    for key in ("data", "columns"):
+        if key not in top:
+            raise check.error((), f"the spec has no '{key}' key",
+                              "a minimal spec needs 'data' and 'columns' "
+                              "(outcome, take_up, offer, stratum)")
+    title = path.stem if top.get("title") is None else check.name(top["title"], ("title",), "text")
+    data_entries, data = _data_files(check, top["data"], path.parent)
+    columns = _columns(check, top["columns"])
+    design = check.mapping(top.get("design"), ("design",), _SECTIONS["design"])
+    offer_probability = _offer_probability(check, design.get("offer_probability"), columns)
+    inference = check.mapping(top.get("inference"), ("inference",), _SECTIONS["inference"])
+    variance = check.choice(inference.get("variance"), ("inference", "variance"), VARIANCES,
+                            "stratified")
+    if variance == "cluster" and columns.cluster is None:
+        raise check.error(("inference", "variance"),
+                          "variance 'cluster' needs a cluster column",
+                          "add 'cluster: <column>' under 'columns'")
+    assignment = check.choice(design.get("assignment"), ("design", "assignment"),
+                              ASSIGNMENTS, "block")
+    if variance == "cluster" and assignment == "independent":
+        raise check.error(("design", "assignment"),
+                          "assignment 'independent' cannot be combined with variance 'cluster'",
+                          "clusters are offered as whole blocks: use assignment: block")
+    output = check.mapping(top.get("output"), ("output",), _SECTIONS["output"])
+    out_dir = DEFAULT_OUTPUT_DIR if output.get("dir") is None else \
+        check.name(output["dir"], ("output", "dir"), "a directory path")
+    missing = check.mapping(top.get("missing"), ("missing",), _SECTIONS["missing"])
+    drop = missing.get("drop_incomplete_rows", False)
+    if not isinstance(drop, bool):
+        raise check.error(("missing", "drop_incomplete_rows"),
+                          f"'missing.drop_incomplete_rows' must be true or false, "
+                          f"found {_kind(drop)}")
+    return Spec(
+        path=path,
+        title=title,
+        data=data,
+        data_entries=data_entries,
+        columns=columns,
+        offer_probability=offer_probability,
+        assignment=assignment,
+        sampling=check.choice(design.get("sampling"), ("design", "sampling"), SAMPLINGS,
+                              "random"),
+        estimators=check.choices(top.get("estimators"), ("estimators",), ESTIMATORS,
+                                 ESTIMATORS),
+        variance=variance,
+        level=_level(check, inference.get("level")),
+        output_dir=(path.parent / Path(out_dir).expanduser()).resolve(),
+        formats=check.choices(output.get("formats"), ("output", "formats"), FORMATS, FORMATS),
+        drop_incomplete_rows=drop,
+        lines=dict(lines),
+    )
+
+
+def _data_files(check: _Checker, value: Any,
+                base: Path) -> tuple[tuple[str, ...], tuple[Path, ...]]:
+    entries = check.names(value, ("data",), "a data file, a list of files or a glob")
+    found: list[Path] = []
+    for i, entry in enumerate(entries):
+        keys = ("data", i) if isinstance(value, list) else ("data",)
+        target = Path(entry).expanduser()
+        target = target if target.is_absolute() else base / target
+        if _GLOB_CHARS & set(entry):
+            matches = sorted(Path(m) for m in glob.glob(str(target), recursive=True))
+            matches = [m for m in matches if m.is_file()]
+            if not matches:
+                raise check.error(keys, f"the pattern '{entry}' matches no file "
+                                  f"(looked in {target.parent})",
+                                  "paths are relative to the spec file's directory")
+        else:
+            if not target.exists():
+                siblings = [p.name for p in target.parent.iterdir()] \
+                    if target.parent.is_dir() else []
+                hint = suggest(target.name, siblings) or \
+                    "paths are relative to the spec file's directory"
+                raise check.error(keys, f"data file '{entry}' does not exist "
+                                  f"(looked for {target})", hint)
+            if target.is_dir():
+                raise check.error(keys, f"'{entry}' is a directory",
+                                  f"name the files, or a glob such as '{entry}/*.csv'")
+            matches = [target]
+        for match in matches:
+            resolved = match.resolve()
+            if resolved.suffix.lower() not in DATA_SUFFIXES:
+                raise check.error(keys, f"'{match.name}' is not a CSV or Parquet file",
+                                  "strativ reads files ending in .csv, .parquet or .pq")
+            if resolved in found:
+                raise check.error(keys, f"'{match.name}' is named twice in 'data'",
+                                  "list each file once, or its rows are counted twice")
+            found.append(resolved)
+    return entries, tuple(found)
+
+
+def _columns(check: _Checker, value: Any) -> Columns:
+    cols = check.mapping(value, ("columns",), _SECTIONS["columns"])
+    for key in _REQUIRED_COLUMNS:
+        if cols.get(key) is None:
+            raise check.error(("columns",), f"'columns' has no '{key}'",
+                              f"add '{key}: <column name>' under 'columns'")
+    covariates = cols.get("covariates")
+    columns = Columns(
+        outcome=check.names(cols["outcome"], ("columns", "outcome"), "a column name or a list"),
+        take_up=check.name(cols["take_up"], ("columns", "take_up"), "a column name"),
+        offer=check.name(cols["offer"], ("columns", "offer"), "a column name"),
+        stratum=check.names(cols["stratum"], ("columns", "stratum"), "a column name or a list"),
+        cluster=None if cols.get("cluster") is None
+        else check.name(cols["cluster"], ("columns", "cluster"), "a column name"),
+        covariates=() if covariates is None
+        else check.names(covariates, ("columns", "covariates"), "a column name or a list"),
+    )
+    seen: dict[str, str] = {}
+    for role, name in columns.roles():
+        if name in seen:
+            raise check.error(("columns", role), f"column '{name}' is used both as "
+                              f"{seen[name]} and as {role}", "give each role its own column")
+        seen[name] = role
+    return columns
+
+
+def _offer_probability(check: _Checker, value: Any, columns: Columns) -> OfferProbability:
+    keys = ("design", "offer_probability")
+    if value is None or value == "estimated":
+        return OfferProbability("estimated")
+    if isinstance(value, str):
+        name = check.name(value, keys, "'estimated', a column name or a mapping")
+        used = {c: r for r, c in columns.roles()}
+        if name in used:
+            raise check.error(keys, f"offer_probability column '{name}' is already the "
+                              f"{used[name]} column", "name the column of design probabilities")
+        return OfferProbability("column", column=name)
+    if not isinstance(value, dict) or not value:
+        raise check.error(keys, f"'design.offer_probability' must be 'estimated', a column "
+                          f"name or a mapping stratum -> probability, found {_kind(value)}",
+                          "for example:  offer_probability: {north: 0.25, south: 0.6}")
+    pairs: list[tuple[str, float]] = []
+    lines: list[int | None] = []
+    for label, prob in value.items():
+        where = keys + (label,)
+        if isinstance(prob, bool) or not isinstance(prob, (int, float)) or not 0 < prob < 1:
+            raise check.error(where, f"offer probability of stratum '{label}' is {prob!r}; "
+                              "it must be a number strictly between 0 and 1")
+        pairs.append((str(label), float(prob)))
+        lines.append(_line_of(check.lines, where))
+    return OfferProbability("mapping", by_stratum=tuple(pairs), lines=tuple(lines))
+
+
+def _level(check: _Checker, value: Any) -> float:
+    keys = ("inference", "level")
+    if value is None:
+        return 0.95
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value < 1:
+        hint = f"write {value / 100:g} for {value:g} %" \
+            if isinstance(value, (int, float)) and not isinstance(value, bool) \
+            and 1 < value < 100 else "for example 0.95"
+        raise check.error(keys, f"'inference.level' is {value!r}; it must be a number "
+                          "strictly between 0 and 1", hint)
+    return float(value)

@@ -1,0 +1,217 @@
+"""`strativ init`: inspect one data file and write a starter spec next to nothing existing.
+
+Roles are filled in only from unambiguous evidence: the stratum when exactly one column has
+few levels. Offer and take-up cannot be told apart from the data alone (both are binary), and
+an outcome cannot be told from a covariate, so those stay commented placeholders that list
+the candidate columns. The file is created only if it does not exist yet.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+from .errors import UsageError
+from .loading import read_table
+from .values import parse_binary, parse_number
+
+__all__ = ["ColumnProfile", "profile_columns", "starter_spec", "write_new_file"]
+
+_MAX_LEVELS = 50
+_PLAIN = re.compile(r"[A-Za-z_][A-Za-z0-9_.\-]*")
+_YAML_WORDS = {"true", "false", "yes", "no", "on", "off", "null", "~"}
+
+
+@dataclass(frozen=True, slots=True)
+class ColumnProfile:
+    """What a column looks like: its kind and how many distinct values it has."""
+
+    name: str
+    """Column name."""
+    kind: str
+    """``"binary"``, ``"numeric"``, ``"text"`` or ``"empty"``."""
+    levels: int
+    """Distinct non-missing values."""
+    missing: int
+    """Missing cells."""
+    rows: int
+    """Rows in the file."""
+
+    @property
+    def few_levels(self) -> bool:
+        """True for a non-binary column with 2..50 levels, each seen twice on average."""
+        return self.kind in ("numeric", "text") and 2 <= self.levels <= _MAX_LEVELS \
+            and self.levels * 2 <= self.rows - self.missing
+
+    def describe(self) -> str:
+        """Return a short description for the spec's comment block."""
+        if self.kind == "binary":
+            text = "binary (0/1 or true/false)"
+        elif self.kind == "empty":
+            text = "empty"
+        elif self.few_levels:
+            text = f"{self.kind}, {self.levels} levels"
+        elif self.levels == self.rows - self.missing:
+            text = f"{self.kind}, every value distinct (an identifier?)"
+        else:
+            text = f"{self.kind}, {self.levels} distinct values"
+        return text + (f", {self.missing} missing" if self.missing else "")
+
+
+def profile_columns(path: Path) -> list[ColumnProfile]:
+    """Classify every column of a CSV or Parquet file.
+
+    Parameters
+    ----------
+    path : Path
+        The data file.
+
+    Returns
+    -------
+    list of ColumnProfile
+        One profile per column, in file order.
+
+    Raises
+    ------
+    DataError
+        When the file cannot be read (see `strativ.cli.loading.read_table`).
+    """
+    table = read_table(path)
+    out = []
+    for name in table.header:
+        cells = table.columns[name]
+        binary = parse_binary(cells)
+        n_missing = int(binary.missing.sum())
+        present = [c.strip() if isinstance(c, str) else c
+                   for c, m in zip(cells, binary.missing, strict=True) if not m]
+        if n_missing == len(cells):
+            kind = "empty"
+        elif binary.invalid.size == 0:
+            kind = "binary"
+        elif parse_number(cells).invalid.size == 0:
+            kind = "numeric"
+        else:
+            kind = "text"
+        out.append(ColumnProfile(name, kind, len(set(present)), n_missing, len(cells)))
+    return out
+
+
+def _scalar(text: str) -> str:
+    """Return `text` as a YAML scalar, quoted when a plain scalar would change meaning."""
+    if _PLAIN.fullmatch(text) and text.lower() not in _YAML_WORDS:
+        return text
+    return json.dumps(text)
+
+
+def _names(profiles: list[ColumnProfile]) -> str:
+    return ", ".join(_scalar(p.name) for p in profiles) or "none found"
+
+
+def starter_spec(data: Path, spec_path: Path) -> str:
+    """Return the text of a starter spec for `data`, to be saved at `spec_path`.
+
+    Parameters
+    ----------
+    data : Path
+        The data file inspected.
+    spec_path : Path
+        Where the spec will live (the data path is written relative to it).
+
+    Returns
+    -------
+    str
+        YAML text with the found roles filled in and the others as commented placeholders.
+    """
+    profiles = [p for p in profile_columns(data) if p.name]
+    binary = [p for p in profiles if p.kind == "binary"]
+    numeric = [p for p in profiles if p.kind == "numeric" and not p.few_levels]
+    grouped = [p for p in profiles if p.few_levels]
+    rel = os.path.relpath(data.resolve(), spec_path.resolve().parent)
+    width = max(len(p.name) for p in profiles) if profiles else 0
+    out = [
+        f"# strativ spec: a starter written by `strativ init` from {data.name}",
+        f"# ({profiles[0].rows if profiles else 0} rows, {len(profiles)} columns).",
+        "# Fill in the commented roles, then:  strativ check " + spec_path.name,
+        "#",
+        "# Columns found:",
+        *[f"#   {p.name.ljust(width)}  {p.describe()}" for p in profiles],
+        "",
+        f"title: {_scalar(data.stem)}",
+        f"data: {_scalar(rel)}   # a file, a list of files, or a glob such as \"round_*.csv\"",
+        "",
+        "columns:",
+        f"  # outcome: <column>    # or a list; numeric columns: {_names(numeric + binary)}",
+        f"  # take_up: <column>    # binary columns: {_names(binary)}",
+        f"  # offer: <column>      # the randomized offer; binary columns: {_names(binary)}",
+    ]
+    if len(grouped) == 1:
+        out.append(f"  stratum: {_scalar(grouped[0].name)}   # the only column with few levels "
+                   f"({grouped[0].levels})")
+    else:
+        out.append(f"  # stratum: <column>    # or a list, combined; columns with few levels: "
+                   f"{_names(grouped)}")
+    out += [
+        "  # cluster: <column>    # optional: the unit that was offered as a whole",
+        "  # covariates: [<column>, ...]   # optional: recorded, not yet used for adjustment",
+        "",
+        "# design:",
+        "#   offer_probability: estimated   # or a column name, or {stratum: probability, ...}",
+        "#   assignment: block              # block | independent",
+        "#   sampling: random               # random | fixed",
+        "# estimators: [fixed_effects, weighted, interacted]",
+        "# inference:",
+        "#   variance: stratified           # stratified | robust | robust_scaled | cluster",
+        "#   level: 0.95",
+        "# output:",
+        "#   dir: strativ_out",
+        "#   formats: [json, csv]",
+        "# missing:",
+        "#   drop_incomplete_rows: false",
+        "",
+    ]
+    return "\n".join(out)
+
+
+def write_new_file(path: Path, text: str) -> None:
+    """Create `path` with `text` atomically; refuse if it already exists.
+
+    Parameters
+    ----------
+    path : Path
+        The file to create.
+    text : str
+        Its contents.
+
+    Raises
+    ------
+    UsageError
+        When `path` exists (it is never overwritten) or cannot be created.
+    """
+    if path.exists():
+        raise UsageError(f"{path} already exists; strativ init never overwrites a file",
+                         "choose another name with --output")
+    directory = path.parent
+    if not directory.is_dir():
+        raise UsageError(f"cannot write {path}: the directory {directory} does not exist")
+    fd, tmp = tempfile.mkstemp(prefix=".strativ-", suffix=".tmp", dir=directory)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as handle:
+            handle.write(text)
+        try:
+            os.link(tmp, path)
+        except FileExistsError:
+            raise
+        except OSError:  # no hard links here: exclusive create never overwrites either
+            with path.open("x", encoding="utf-8") as handle:
+                handle.write(text)
+    except FileExistsError:
+        raise UsageError(f"{path} already exists; strativ init never overwrites a file",
+                         "choose another name with --output") from None
+    except OSError as exc:
+        raise UsageError(f"cannot write {path} ({exc.strerror})") from None
+    finally:
+        os.unlink(tmp)

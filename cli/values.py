@@ -1,0 +1,185 @@
+"""Parse the cells of one data column for its role: binary code, number or label.
+
+Values come either as text (CSV) or as typed Python values (Parquet). Each parser returns
+the parsed array plus the positions of missing and of invalid entries; the loader turns
+those positions into row numbers in its messages.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from numbers import Integral, Real
+from typing import Any
+
+import numpy as np
+
+__all__ = [
+    "MISSING_TOKENS",
+    "Parsed",
+    "is_missing",
+    "parse_binary",
+    "parse_number",
+    "parse_label",
+]
+
+MISSING_TOKENS = frozenset({"", "na", "n/a", "nan", "null", "none"})
+"""Text read as a missing value (compared after trimming spaces, ignoring case)."""
+
+_BINARY_TEXT = {"0": 0, "1": 1, "false": 0, "true": 1}
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class Parsed:
+    """One column parsed for its role."""
+
+    values: np.ndarray
+    """Parsed values; entries at `missing` or `invalid` positions are placeholders."""
+    missing: np.ndarray
+    """Boolean mask of missing entries."""
+    invalid: np.ndarray
+    """Indices of entries that are neither missing nor valid, in row order."""
+
+
+def is_missing(value: Any) -> bool:
+    """Return True when `value` counts as missing (None, NaN or a missing token).
+
+    Parameters
+    ----------
+    value : object
+        A cell as read from a CSV (text) or a Parquet file (typed).
+
+    Returns
+    -------
+    bool
+        Whether the cell is missing.
+    """
+    if value is None:
+        return True
+    if isinstance(value, str):
+        return value.strip().lower() in MISSING_TOKENS
+    if isinstance(value, Real) and not isinstance(value, Integral):
+        return math.isnan(float(value))
+    return False
+
+
+def _binary(value: Any) -> int | None:
+    if isinstance(value, str):
+        return _BINARY_TEXT.get(value.strip().lower())
+    if isinstance(value, (bool, np.bool_)):
+        return int(value)
+    if isinstance(value, Real) and float(value) in (0.0, 1.0):
+        return int(value)
+    return None
+
+
+def parse_binary(cells: Sequence[Any]) -> Parsed:
+    """Parse a 0/1 column; accepted codes are 0/1 and true/false (any case), nothing else.
+
+    Parameters
+    ----------
+    cells : sequence
+        Text or typed cells.
+
+    Returns
+    -------
+    Parsed
+        int8 values.
+    """
+    values = np.zeros(len(cells), dtype=np.int8)
+    missing = np.zeros(len(cells), dtype=bool)
+    invalid: list[int] = []
+    for i, cell in enumerate(cells):
+        if is_missing(cell):
+            missing[i] = True
+            continue
+        code = _binary(cell)
+        if code is None:
+            invalid.append(i)
+        else:
+            values[i] = code
+    return Parsed(values, missing, np.asarray(invalid, dtype=np.int64))
+
+
+def _number(value: Any) -> float | None:
+    if isinstance(value, str):
+        text = value.strip()
+        low = text.lower()
+        if low in ("true", "false"):
+            return float(low == "true")
+        if "_" in text:
+            return None
+        try:
+            number = float(text)
+        except ValueError:
+            return None
+    elif isinstance(value, (bool, np.bool_)):
+        number = float(value)
+    elif isinstance(value, Real):
+        number = float(value)
+    else:
+        return None
+    return number if math.isfinite(number) else None
+
+
+def parse_number(cells: Sequence[Any]) -> Parsed:
+    """Parse a numeric column (true/false read as 1/0); infinities are invalid.
+
+    Parameters
+    ----------
+    cells : sequence
+        Text or typed cells.
+
+    Returns
+    -------
+    Parsed
+        float64 values, NaN where missing or invalid.
+    """
+    values = np.full(len(cells), np.nan)
+    missing = np.zeros(len(cells), dtype=bool)
+    invalid: list[int] = []
+    for i, cell in enumerate(cells):
+        if is_missing(cell):
+            missing[i] = True
+            continue
+        number = _number(cell)
+        if number is None:
+            invalid.append(i)
+        else:
+            values[i] = number
+    return Parsed(values, missing, np.asarray(invalid, dtype=np.int64))
+
+
+def _label(value: Any) -> str:
+    if isinstance(value, str):
+        return value.strip()
+    if isinstance(value, (bool, np.bool_)):
+        return "true" if value else "false"
+    if isinstance(value, Real) and float(value).is_integer():
+        return str(int(value))
+    return str(value)
+
+
+def parse_label(cells: Sequence[Any]) -> Parsed:
+    """Parse a label column (stratum, cluster) into trimmed text; integral numbers lose ".0".
+
+    Parameters
+    ----------
+    cells : sequence
+        Text or typed cells.
+
+    Returns
+    -------
+    Parsed
+        object array of str; `invalid` is always empty.
+    """
+    values = np.empty(len(cells), dtype=object)
+    missing = np.zeros(len(cells), dtype=bool)
+    for i, cell in enumerate(cells):
+        if is_missing(cell):
+            missing[i] = True
+            values[i] = ""
+        else:
+            values[i] = _label(cell)
+    return Parsed(values, missing, np.zeros(0, dtype=np.int64))
