@@ -60,31 +60,36 @@ def stratum_table(
     with np.errstate(divide="ignore", invalid="ignore"):
         gap = design.itt * (fe.stratum_weight / fe.denominator
                             - late.stratum_weight / late.denominator)
+    n, share = design.n.tolist(), design.offer_share.tolist()
+    mean_y, mean_d = design.mean_outcome.tolist(), design.mean_take_up.tolist()
+    itt, fs = design.itt.tolist(), design.first_stage.tolist()
+    effect_l, var_l = effect.tolist(), eff_var.tolist()
+    w_fe_l, w_late_l, gap_l = w_fe.tolist(), w_late.tolist(), gap.tolist()
     rows = []
     for k, label in enumerate(design.labels):
-        undefined = not math.isfinite(effect[k])
+        undefined = not math.isfinite(effect_l[k])
         rows.append(
             StratumRow(
                 label=label,
-                n=int(design.n_stratum[k]),
-                n_offered=int(design.n[k, 1]),
-                n_not_offered=int(design.n[k, 0]),
-                offer_share=float(design.offer_share[k]),
-                mean_outcome_offered=float(design.mean_outcome[k, 1]),
-                mean_outcome_not_offered=float(design.mean_outcome[k, 0]),
-                take_up_offered=float(design.mean_take_up[k, 1]),
-                take_up_not_offered=float(design.mean_take_up[k, 0]),
-                itt=float(design.itt[k]),
-                first_stage=float(design.first_stage[k]),
-                effect=None if undefined else float(effect[k]),
-                effect_std_error=None if undefined else math.sqrt(eff_var[k]),
+                n=int(n[k][0] + n[k][1]),
+                n_offered=int(n[k][1]),
+                n_not_offered=int(n[k][0]),
+                offer_share=share[k],
+                mean_outcome_offered=mean_y[k][1],
+                mean_outcome_not_offered=mean_y[k][0],
+                take_up_offered=mean_d[k][1],
+                take_up_not_offered=mean_d[k][0],
+                itt=itt[k],
+                first_stage=fs[k],
+                effect=None if undefined else effect_l[k],
+                effect_std_error=None if undefined else math.sqrt(var_l[k]),
                 effect_reason="first stage is zero in this stratum" if undefined else None,
-                weight_fixed_effects=_float(w_fe[k]),
-                weight_complier=_float(w_late[k]),
-                always_takers=float(design.mean_take_up[k, 0]),
-                never_takers=float(1.0 - design.mean_take_up[k, 1]),
-                compliers=float(design.first_stage[k]),
-                gap_contribution=_float(gap[k]),
+                weight_fixed_effects=_float(w_fe_l[k]),
+                weight_complier=_float(w_late_l[k]),
+                always_takers=mean_d[k][0],
+                never_takers=1.0 - mean_d[k][1],
+                compliers=fs[k],
+                gap_contribution=_float(gap_l[k]),
             )
         )
     return StratumTable(
