@@ -20,6 +20,7 @@ from .kernels import (
     fine_cell_sums_fused,
     fused_available,
     integer_codes,
+    integer_lookup,
 )
 
 __all__ = ["CellTable", "ClusterSums", "build_cells", "cells_from_frame"]
@@ -148,17 +149,25 @@ def _check_finite(y: np.ndarray) -> None:
 
 
 def _fused_sums(
-    y: np.ndarray, d: np.ndarray, z: np.ndarray, codes: np.ndarray, n_strata: int
+    y: np.ndarray,
+    d: np.ndarray,
+    z: np.ndarray,
+    raw: np.ndarray,
+    lookup: np.ndarray,
+    lo: int,
+    n_strata: int,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None:
-    """The compiled single pass, when the code arrays are plain numbers."""
+    """The compiled single pass; float codes are checked and converted first."""
     arrays = []
-    for values in (d, z):
+    for values, name in ((d, "take_up"), (z, "offer")):
         if values.dtype == bool:
             values = values.view(np.uint8)
-        if values.dtype.kind not in "iuf":
+        elif values.dtype.kind == "f":
+            values = _as_binary(values, name)
+        elif values.dtype.kind not in "iu":
             return None
         arrays.append(values)
-    return fine_cell_sums_fused(y, arrays[0], arrays[1], codes, n_strata)
+    return fine_cell_sums_fused(y, arrays[0], arrays[1], raw, lookup, lo, n_strata)
 
 
 def _cell_arrays_from_fine(
@@ -287,12 +296,21 @@ def build_cells(
     if not np.issubdtype(y.dtype, np.number) or y.dtype == bool:
         raise InputError("outcome", f"expected numbers, got dtype {y.dtype}.")
     y = y.astype(np.float64, copy=False)
-    codes, labels = _factorize(s, "stratum")
-    n_strata = len(labels)
     sums = None
     if cluster is None and y.size >= FUSED_MIN_ROWS and fused_available():
-        sums = _fused_sums(y, d_raw, z_raw, codes, n_strata)
+        coded = integer_lookup(s)
+        if coded is None:
+            codes, labels = _factorize(s, "stratum")
+            coded = (np.arange(len(labels)), 0, labels)
+            raw = codes
+        else:
+            raw = s
+        lookup, lo, labels = coded
+        n_strata = len(labels)
+        sums = _fused_sums(y, d_raw, z_raw, raw, lookup, lo, n_strata)
     if sums is None:
+        codes, labels = _factorize(s, "stratum")
+        n_strata = len(labels)
         d = _as_binary(d_raw, "take_up")
         z = _as_binary(z_raw, "offer")
         _check_finite(y)

@@ -15,8 +15,15 @@ import numpy as np
 from .design import Design
 from .forms import LinearForm
 
-__all__ = ["VARIANCES", "ASSIGNMENTS", "SAMPLINGS", "covariance", "ratio_variance",
-           "stratum_effect_variance"]
+__all__ = [
+    "VARIANCES",
+    "ASSIGNMENTS",
+    "SAMPLINGS",
+    "covariance",
+    "quadratic_form",
+    "ratio_variance",
+    "stratum_effect_variance",
+]
 
 VARIANCES = ("stratified", "robust", "robust_scaled", "cluster")
 ASSIGNMENTS = ("block", "independent")
@@ -35,16 +42,17 @@ def _within_moments(design: Design, variance: str) -> np.ndarray:
     return design.cluster_q * (g / (g - 1.0) if g > 1 else 1.0)
 
 
-def covariance(
+def quadratic_form(
     design: Design,
     forms: Sequence[LinearForm],
+    projection: np.ndarray,
     *,
     variance: str,
     assignment: str,
     sampling: str,
     centred: bool = False,
 ) -> np.ndarray:
-    """Joint covariance of the numerators and denominators of several estimators.
+    """Covariance of linear combinations of the estimators' numerators and denominators.
 
     Performs no error checking: `fit` validates the options.
 
@@ -54,6 +62,8 @@ def covariance(
         The analysis sample.
     forms : sequence of LinearForm
         The estimators, m of them.
+    projection : numpy.ndarray
+        Shape (m, 2, q): column r is the combination ``sum_j P[j, 0, r] N_j + P[j, 1, r] D_j``.
     variance : {"stratified", "robust", "robust_scaled", "cluster"}
         Variance flavour.
     assignment : {"block", "independent"}
@@ -70,39 +80,73 @@ def covariance(
     Returns
     -------
     numpy.ndarray
-        Shape (2m, 2m), ordered (N_1, D_1, N_2, D_2, ...).
+        Shape (q, q).
 
     Notes
     -----
-    Stratified: ``V_within + [V_between] + [V_assign]`` with divisor ``n_sz - 1``.
+    Each unit's influence is projected onto the combinations cell by cell before squaring,
+    so a contrast of two nearly equal estimators keeps its precision (no difference of large
+    sums). Stratified: ``V_within + [V_between] + [V_assign]`` with divisor ``n_sz - 1``.
     Robust: the regression sandwich (divisor ``n_sz``) with the residual cell mean added;
-    robust_scaled multiplies estimator j's block by ``n / (n - k_j)``. Cluster: deviations
-    summed within clusters, scaled by ``G / (G - 1)``, plus the same bracketed terms.
+    robust_scaled multiplies estimator j's influence by ``sqrt(n / (n - k_j))``. Cluster:
+    deviations summed within clusters, scaled by ``G / (G - 1)``, plus the bracketed terms.
     """
-    m = len(forms)
+    proj = np.asarray(projection, dtype=float)
+    if variance == "robust_scaled":
+        n = design.n_units
+        proj = proj * np.sqrt([n / (n - f.n_regressors) for f in forms])[:, None, None]
     kappa = np.stack([f.kappa for f in forms], axis=-1)
-    omega = np.einsum("szj,szk,szab->jakb", kappa, kappa, _within_moments(design, variance))
+    within = np.einsum("szj,jaq->szaq", kappa, proj)
+    out = np.einsum("szaq,szab,szbr->qr", within, _within_moments(design, variance), within)
     if variance in ("robust", "robust_scaled"):
         attr = "robust_shift_centred" if centred else "robust_shift"
         shift = np.stack([getattr(f, attr) for f in forms], axis=2)
-        omega += np.einsum("sz,szj,szk,szja,szkb->jakb", design.n, kappa, kappa, shift, shift)
-        if variance == "robust_scaled":
-            n = design.n_units
-            scale = np.sqrt([n / (n - f.n_regressors) for f in forms])
-            omega *= np.einsum("j,k->jk", scale, scale)[:, None, :, None]
-    else:
-        attr = "count_influence_centred" if centred else "count_influence"
-        u = np.stack([getattr(f, attr) for f in forms], axis=2)
-        p = design.offer_share[:, None, None]
-        n_s = design.n_stratum
-        if sampling == "random":
-            mean_u = p * u[:, 1] + (1.0 - p) * u[:, 0]
-            omega += np.einsum("s,sja,skb->jakb", n_s, mean_u, mean_u)
-        if assignment == "independent":
-            diff = u[:, 1] - u[:, 0]
-            coef = n_s * design.offer_share * (1.0 - design.offer_share)
-            omega += np.einsum("s,sja,skb->jakb", coef, diff, diff)
-    return omega.reshape(2 * m, 2 * m)
+        t = np.einsum("szj,szja,jaq->szq", kappa, shift, proj)
+        out += np.einsum("sz,szq,szr->qr", design.n, t, t)
+        return out
+    attr = "count_influence_centred" if centred else "count_influence"
+    u = np.einsum("szja,jaq->szq", np.stack([getattr(f, attr) for f in forms], axis=2), proj)
+    p = design.offer_share[:, None]
+    n_s = design.n_stratum
+    if sampling == "random":
+        mean_u = p * u[:, 1] + (1.0 - p) * u[:, 0]
+        out += np.einsum("s,sq,sr->qr", n_s, mean_u, mean_u)
+    if assignment == "independent":
+        diff = u[:, 1] - u[:, 0]
+        coef = n_s * design.offer_share * (1.0 - design.offer_share)
+        out += np.einsum("s,sq,sr->qr", coef, diff, diff)
+    return out
+
+
+def covariance(
+    design: Design,
+    forms: Sequence[LinearForm],
+    *,
+    variance: str,
+    assignment: str,
+    sampling: str,
+    centred: bool = False,
+) -> np.ndarray:
+    """Joint covariance of ``(N_1, D_1, N_2, D_2, ...)`` for a stack of estimators.
+
+    Parameters
+    ----------
+    design : Design
+        The analysis sample.
+    forms : sequence of LinearForm
+        The estimators, m of them.
+    variance, assignment, sampling, centred
+        As in `quadratic_form`.
+
+    Returns
+    -------
+    numpy.ndarray
+        Shape (2m, 2m); ``[[A, B], [B, C]]`` for one estimator (METHODS.md §4).
+    """
+    m = len(forms)
+    identity = np.eye(2 * m).reshape(m, 2, 2 * m)
+    return quadratic_form(design, forms, identity, variance=variance, assignment=assignment,
+                          sampling=sampling, centred=centred)
 
 
 def ratio_variance(omega: np.ndarray, theta: float, denominator: float) -> float:
