@@ -49,6 +49,8 @@ class ClusterSums:
     """The matching cross-product of the outcome and take-up cluster deviations, (K, 2)."""
     q_take_up: np.ndarray
     """The matching sum of squared take-up cluster deviations, (K, 2)."""
+    size_sq: np.ndarray
+    """Sum over clusters of the squared cluster size, (K, 2)."""
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -226,6 +228,7 @@ def _cluster_sums(
         q_outcome=per_cell(dev_y * dev_y),
         q_cross=per_cell(dev_y * dev_d),
         q_take_up=per_cell(dev_d * dev_d),
+        size_sq=per_cell(np.bincount(codes, minlength=n_clusters).astype(float) ** 2),
     )
 
 

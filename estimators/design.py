@@ -38,6 +38,9 @@ class Design:
     """Cluster-level sums of squares of (y, d) deviations (K, 2, 2, 2), or None."""
     n_clusters: int
     """Clusters in the analysis sample (0 without a cluster column)."""
+    cluster_size_sq: np.ndarray | None
+    """Sum of squared cluster sizes per stratum (K,), or None: with clusters sampled whole,
+    it replaces n_s in the between-strata term."""
     single_unit_cells: int
     """Cells of one unit that borrowed the pooled within-arm covariance."""
     exclusions: tuple[ExcludedStratum, ...]
@@ -140,10 +143,12 @@ def analysis_design(cells: CellTable) -> Design:
     cov, single = _unbiased_cov(ss, n[keep])
     cluster_q = None
     n_clusters = 0
+    size_sq = None
     if cells.clusters is not None:
         c = cells.clusters
         cluster_q = _moment_matrix(c.q_outcome[keep], c.q_cross[keep], c.q_take_up[keep])
         n_clusters = int(c.count[keep].sum())
+        size_sq = c.size_sq[keep].sum(axis=1)
     return Design(
         labels=tuple(label for label, k in zip(cells.labels, keep, strict=True) if k),
         n=n[keep],
@@ -153,6 +158,7 @@ def analysis_design(cells: CellTable) -> Design:
         cov=cov,
         cluster_q=cluster_q,
         n_clusters=n_clusters,
+        cluster_size_sq=size_sq,
         single_unit_cells=single,
         exclusions=tuple(exclusions),
     )

@@ -89,7 +89,9 @@ def quadratic_form(
     sums). Stratified: ``V_within + [V_between] + [V_assign]`` with divisor ``n_sz - 1``.
     Robust: the regression sandwich (divisor ``n_sz``) with the residual cell mean added;
     robust_scaled multiplies estimator j's influence by ``sqrt(n / (n - k_j))``. Cluster:
-    deviations summed within clusters, scaled by ``G / (G - 1)``, plus the bracketed terms.
+    deviations summed within clusters, scaled by ``G / (G - 1)``, plus the bracketed terms;
+    clusters are sampled whole, so the between term weighs strata by the sum of squared
+    cluster sizes instead of ``n_s`` (equal for clusters of one).
     """
     proj = np.asarray(projection, dtype=float)
     if variance == "robust_scaled":
@@ -110,7 +112,8 @@ def quadratic_form(
     n_s = design.n_stratum
     if sampling == "random":
         mean_u = p * u[:, 1] + (1.0 - p) * u[:, 0]
-        out += np.einsum("s,sq,sr->qr", n_s, mean_u, mean_u)
+        draws = design.cluster_size_sq if variance == "cluster" else n_s
+        out += np.einsum("s,sq,sr->qr", draws, mean_u, mean_u)
     if assignment == "independent":
         diff = u[:, 1] - u[:, 0]
         coef = n_s * design.offer_share * (1.0 - design.offer_share)

@@ -506,21 +506,24 @@ def test_cluster_variance_gives_finite_errors_for_every_estimator(estimator):
     )
 
 
+@pytest.mark.parametrize("sampling", ["fixed", "random"])
 @pytest.mark.parametrize("estimator", ESTIMATORS)
 def test_duplicating_each_unit_into_a_two_unit_cluster_changes_neither_estimate_nor_error(
-    estimator,
+    estimator, sampling
 ):
     frame = lottery()
     frame = frame[frame["s"] != 50].reset_index(drop=True)
     single = cells_of(frame, cluster=np.arange(len(frame)))
     doubled_frame = pd.concat([frame, frame], ignore_index=True)
     doubled = cells_of(doubled_frame, cluster=np.tile(np.arange(len(frame)), 2))
-    options = {"estimator": estimator, "variance": "cluster", "sampling": "fixed"}
+    options = {"estimator": estimator, "variance": "cluster", "sampling": sampling}
     one, two = fit(single, **options), fit(doubled, **options)
     # common practice, no source: identical copies change no mean
     assert two.estimate == pytest.approx(one.estimate, rel=1e-12)
     # from METHODS.md §4 (cluster form): a pair of copies doubles the cluster deviation, so
-    # kappa^2 Q is unchanged (kappa halves, Q quadruples) and G is the same: equal errors
+    # kappa^2 Q is unchanged (kappa halves, Q quadruples) and G is the same; under random
+    # sampling the between term weighs strata by the sum of squared cluster sizes, which
+    # quadruples while h^2 falls by four: equal errors
     assert two.std_error == pytest.approx(one.std_error, rel=1e-10)
 
 
