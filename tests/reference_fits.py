@@ -4,18 +4,18 @@ Each function here builds one regression of METHODS.md section 3 from unit-level
 fits it with ``linearmodels.iv.IV2SLS`` twice: ``cov_type="robust"`` with
 ``debiased=False`` (HC0) and with ``debiased=True`` (scaled by ``n / (n - k)``, ``k`` the
 number of regressors including every dummy). The helpers only build the reference side;
-the comparison with strativ is written out in the test files.
+the comparison with strativ, and the datasets with their sources, are in
+``test_reference.py``.
 
 The module also lists the (dataset, estimator, check) cases that the reference tests must
-cover, so that a guard test can tell when one goes missing.
+cover, written out here independently of the test module's parametrization, so that a
+guard test can tell when a check or a dataset goes missing.
 """
 
 from __future__ import annotations
 
-import importlib.util
-from collections.abc import Callable, Hashable, Mapping
+from collections.abc import Callable, Collection, Hashable, Mapping
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -28,12 +28,8 @@ POINT_TOLERANCE = 1e-10
 STD_ERROR_TOLERANCE = 1e-8
 """Largest relative error allowed between a strativ standard error and its reference."""
 
-DATASET_FILES: dict[str, str] = {
-    "voucher": "test_reference_voucher.py",
-    "401ksubs": "test_reference_401k.py",
-    "simulated": "test_reference_simulated.py",
-}
-"""The test file that holds each dataset's reference checks."""
+REFERENCE_DATASETS: tuple[str, ...] = ("voucher", "401ksubs", "simulated")
+"""Every dataset that the reference checks must run on."""
 
 CHECKS: tuple[tuple[str, str], ...] = (
     ("fixed_effects", "estimate"),
@@ -50,10 +46,10 @@ CHECKS: tuple[tuple[str, str], ...] = (
     ("interacted", "stratum_effect"),
     ("interacted", "stratum_robust"),
 )
-"""Every (estimator, check) pair that each dataset's reference file must cover."""
+"""Every (estimator, check) pair that the reference checks must cover on each dataset."""
 
 REQUIRED_CASES: frozenset[tuple[str, str, str]] = frozenset(
-    (dataset, estimator, check) for dataset in DATASET_FILES for estimator, check in CHECKS
+    (dataset, estimator, check) for dataset in REFERENCE_DATASETS for estimator, check in CHECKS
 )
 """Every (dataset, estimator, check) case of the reference suite."""
 
@@ -239,7 +235,7 @@ def saturated_2sls(sample: Sample) -> SaturatedFit:
 
 
 def covers(estimator: str, check: str) -> Callable[[Callable[..., None]], Callable[..., None]]:
-    """Mark a test function as covering the (estimator, check) pair for its file's dataset."""
+    """Mark a test function as covering the (estimator, check) pair on every dataset it runs on."""
     if (estimator, check) not in CHECKS:
         raise ValueError(f"({estimator!r}, {check!r}) is not listed in reference_fits.CHECKS")
 
@@ -250,23 +246,18 @@ def covers(estimator: str, check: str) -> Callable[[Callable[..., None]], Callab
     return mark
 
 
-def covered_cases(namespace: Mapping[str, Any]) -> frozenset[tuple[str, str, str]]:
-    """Return the (dataset, estimator, check) cases marked by ``covers`` in a test module."""
-    dataset = namespace["DATASET"]
+def covered_cases(
+    namespace: Mapping[str, Any], datasets: Collection[str]
+) -> frozenset[tuple[str, str, str]]:
+    """Return the (dataset, estimator, check) cases marked by ``covers`` in a test module.
+
+    ``datasets`` are the datasets that the module's tests are parametrized over; each
+    marked ``test_`` function counts once per dataset.
+    """
     return frozenset(
         (dataset, estimator, check)
+        for dataset in datasets
         for name, value in namespace.items()
         if name.startswith("test_")
         for estimator, check in getattr(value, "reference_checks", ())
     )
-
-
-def load_reference_module(dataset: str) -> dict[str, Any]:
-    """Load the reference test file of ``dataset`` under a private name; return its namespace."""
-    path = Path(__file__).with_name(DATASET_FILES[dataset])
-    spec = importlib.util.spec_from_file_location(f"_reference_guard_{dataset}", path)
-    if spec is None or spec.loader is None:
-        raise FileNotFoundError(f"{path}: reference test file for dataset {dataset!r} not found")
-    module = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(module)
-    return vars(module)

