@@ -11,6 +11,7 @@ import numpy as np
 
 from .cells import CellTable
 from .design import Design, analysis_design
+from .diagnostics import constant_effect_test, negative_first_stages
 from .engine import ASSIGNMENTS, SAMPLINGS, VARIANCES, covariance, ratio_variance
 from .errors import InputError
 from .forms import LinearForm, complier_form, design_weighted_form, fixed_effects_form
@@ -265,8 +266,9 @@ def fit_all(
     -------
     Comparison
         The estimates, the per-stratum table with implied weights, fixed effects minus the
-        complier-weighted estimate with its standard error and per-stratum decomposition, and
-        the stratum-size-weighted average.
+        complier-weighted estimate with its standard error and per-stratum decomposition,
+        the stratum-size-weighted average, the constant-effect test and the strata whose
+        first stage is negative beyond noise.
 
     Raises
     ------
@@ -311,10 +313,17 @@ def fit_all(
             f"{design.single_unit_cells} one-unit cell(s) borrowed the pooled within-arm "
             "variance of their arm"
         )
+    pooled = late.numerator / late.denominator if late.denominator != 0 else None
+    spread = None
+    for estimate in estimates:
+        if estimate.estimator != "fixed_effects" and estimate.std_error:
+            spread = estimate.std_error
     return Comparison(
         estimates=estimates,
         strata=stratum_table(design, fe, late, variance=variance),
         gap=contrast(design, fe, late, level=level, **options),
         size_weighted=size_weighted(design, variance=variance, sampling=sampling),
         notes=tuple(notes),
+        constant_effect=constant_effect_test(design, theta=pooled, scale=spread),
+        negative_first_stage=negative_first_stages(design, level=level),
     )

@@ -18,6 +18,8 @@ __all__ = [
     "Gap",
     "SizeWeighted",
     "Comparison",
+    "ConstantEffectTest",
+    "NegativeFirstStage",
     "clean",
 ]
 
@@ -235,6 +237,42 @@ class SizeWeighted:
 
 
 @dataclass(frozen=True, slots=True)
+class ConstantEffectTest:
+    """Over-identification test of one effect in every stratum (METHODS.md §5)."""
+
+    statistic: float | None
+    """``J``, minimized over the common effect; None with a reason when undefined."""
+    df: int
+    """Degrees of freedom, strata used minus one."""
+    p_value: float | None
+    """Chi-squared upper tail probability of `statistic`."""
+    effect: float | None
+    """The common effect at the minimum."""
+    reason: str | None
+    """Why the test is undefined, when it is."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return _as_dict(self)
+
+
+@dataclass(frozen=True, slots=True)
+class NegativeFirstStage:
+    """A stratum whose first stage is negative beyond noise: monotonicity is in question."""
+
+    label: Any
+    """Stratum label."""
+    first_stage: float
+    """Its first stage."""
+    z: float | None
+    """First stage over its standard error (None when that error is zero)."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return _as_dict(self)
+
+
+@dataclass(frozen=True, slots=True)
 class Comparison:
     """Several estimators fitted on one analysis sample, side by side."""
 
@@ -248,6 +286,11 @@ class Comparison:
     """Secondary estimand: stratum-size-weighted average of stratum effects."""
     notes: tuple[str, ...] = ()
     """Remarks on how the estimators relate on this sample."""
+    constant_effect: ConstantEffectTest | None = None
+    """Test that the effect is the same in every stratum (when it holds, the estimators
+    agree in large samples)."""
+    negative_first_stage: tuple[NegativeFirstStage, ...] = ()
+    """Strata whose first stage is negative beyond noise."""
 
     def get(self, estimator: str) -> Estimate:
         """The estimate of the named estimator.

@@ -267,6 +267,8 @@ def affine_image(result: dict[str, Any], a: float, b: float) -> dict[str, Any]:
             }
         )
     out["strata"] = {**result["strata"], "rows": rows}
+    test = result["constant_effect"]
+    out["constant_effect"] = {**test, "effect": _scaled(test["effect"], b)}
     gap = result["gap"]
     out["gap"] = {
         "estimate": _scaled(gap["estimate"], b),
