@@ -14,6 +14,7 @@ from __future__ import annotations
 import csv
 import hashlib
 import io
+import re
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -31,6 +32,7 @@ STRATUM_JOIN = " / "
 """Separator between the parts of a stratum label built from several columns."""
 _SHOWN = 5
 _OTHER_DELIMITERS = {";": "semicolons", "\t": "tabs", "|": "vertical bars"}
+_DECIMAL_COMMA = re.compile(r"[-+]?\d*,\d+")
 
 
 @dataclass(frozen=True, slots=True)
@@ -164,6 +166,9 @@ def _read_csv(path: Path, wanted: Sequence[str] | None) -> _Table:
     if not raw.strip():
         raise DataError(path, None, (), "the file is empty",
                         "export the data again; a CSV needs a header line and data rows")
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
+        raise DataError(path, None, (), "the file is UTF-16 text; strativ reads UTF-8",
+                        "save it as CSV UTF-8")
     if raw.startswith(b"PAR1"):
         raise DataError(path, None, (), "the file is Parquet data with a .csv name",
                         "rename it to end in .parquet")
@@ -173,8 +178,10 @@ def _read_csv(path: Path, wanted: Sequence[str] | None) -> _Table:
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
-        raise DataError(path, None, (), f"the file is not UTF-8 text (bad byte at offset "
-                        f"{exc.start})", "save it as CSV UTF-8") from None
+        line = raw[:exc.start].count(b"\n") + 1
+        raise DataError(path, None, (), f"the file is not UTF-8 text: byte "
+                        f"0x{raw[exc.start]:02x} on line {line} (Latin-1 or Windows-1252?)",
+                        "save it as CSV UTF-8") from None
     reader = csv.reader(io.StringIO(text, newline=""))
     header: list[str] | None = None
     header_line = ""
@@ -203,7 +210,8 @@ def _read_csv(path: Path, wanted: Sequence[str] | None) -> _Table:
                         f"({exc})", "check the quoting on that line") from None
     assert header is not None
     if not records:
-        raise DataError(path, None, (), "the file has a header but no data rows")
+        raise DataError(path, None, (), "the file has a header but no data rows",
+                        "export the data again with its rows, or remove the file from 'data'")
     keep = [(name, j) for j, name in enumerate(header) if wanted is None or name in wanted]
     columns = {name: [rec[j] for rec in records] for name, j in keep}
     return _Table(header, columns, np.arange(1, len(records) + 1), np.asarray(lines),
@@ -236,7 +244,8 @@ def _read_parquet(path: Path, wanted: Sequence[str] | None) -> _Table:
         raise DataError(path, None, (), f"cannot be read as Parquet ({exc})",
                         "check that the file is complete and really Parquet") from None
     if table.num_rows == 0:
-        raise DataError(path, None, (), "the file has no data rows")
+        raise DataError(path, None, (), "the file has no data rows",
+                        "export the data again with its rows, or remove the file from 'data'")
     columns = {name: table.column(name).to_pylist() for name in names}
     return _Table(header, columns, np.arange(1, table.num_rows + 1),
                   np.zeros(table.num_rows, dtype=np.int64), "")
@@ -279,7 +288,9 @@ def _check_columns(path: Path, table: _Table, spec: Spec,
                 raise DataError(path, None, (), f"the fields seem to be separated by {plural}, "
                                 f"not commas: no column '{name}'{at}",
                                 "save the file as comma-separated CSV")
-        near = suggest(name, present)
+        # a misspelt keyword reads as a column name; suggest the keyword too
+        near = suggest(name, present + (["estimated"] if role == "design.offer_probability"
+                                        else []))
         shown = ", ".join(present[:20]) + (", ..." if len(present) > 20 else "")
         hint = f"{near} Columns in the file: {shown}" if near else f"columns in the file: {shown}"
         raise DataError(path, name, (), f"no column '{name}'{at}", hint)
@@ -313,9 +324,13 @@ def _parse_file(path: Path, table: _Table, spec: Spec) -> dict[str, Parsed]:
         if parsed.invalid.size:
             role = "outcome" if name in cols.outcome else \
                 "covariate" if name in cols.covariates else "offer probability"
+            first = table.columns[name][int(parsed.invalid[0])]
+            comma = isinstance(first, str) and _DECIMAL_COMMA.fullmatch(first.strip())
             raise _bad_values(path, name, table, parsed, table.columns[name],
                               f"the {role} column must be numeric",
-                              "fix or blank out these values (blank = missing)")
+                              "write numbers with a decimal point and no separators "
+                              "(12.5 and 1000, not 12,5 or 1,000)" if comma
+                              else "fix or blank out these values (blank = missing)")
         out[name] = parsed
     if spec.offer_probability.column is not None:
         name = spec.offer_probability.column
@@ -411,6 +426,8 @@ def _assemble(spec: Spec, files: list[InputFile], pieces: list[dict[str, np.ndar
     parts = [stack(name).astype(str) for name in cols.stratum]
     labels = parts[0] if len(parts) == 1 else \
         np.asarray([STRATUM_JOIN.join(p) for p in zip(*parts, strict=True)], dtype=object)
+    if len(parts) > 1:
+        _check_joined_labels(spec, parts, labels)
     stratum = _integer_labels(labels) if len(parts) == 1 else labels
     return Dataset(
         files=tuple(files),
@@ -429,6 +446,22 @@ def _assemble(spec: Spec, files: list[InputFile], pieces: list[dict[str, np.ndar
         dropped=tuple((name, count) for name, count in dropped.items() if count),
         n_dropped=n_dropped,
     )
+
+
+def _check_joined_labels(spec: Spec, parts: list[np.ndarray], labels: np.ndarray) -> None:
+    """Two different combinations of stratum values must not read as one label."""
+    combos = set(zip(*(p.tolist() for p in parts), strict=True))
+    if len(combos) == len(set(labels.tolist())):
+        return
+    first: dict[str, tuple[str, ...]] = {}
+    for combo in sorted(combos):
+        label = STRATUM_JOIN.join(combo)
+        seen = first.setdefault(label, combo)
+        if seen != combo:
+            raise DataError(None, " + ".join(spec.columns.stratum), (),
+                            f"stratum values {seen} and {combo} both read as stratum "
+                            f"'{label}'", f"remove '{STRATUM_JOIN.strip()}' from the "
+                            "stratum values so that each combination keeps its own label")
 
 
 def _integer_labels(labels: np.ndarray) -> np.ndarray:

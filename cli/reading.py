@@ -129,9 +129,15 @@ def reading(comparison: Comparison) -> list[str]:
     list of str
         How far the fixed-effects estimate lies from the complier-weighted one (in standard
         errors of the difference) and whether that exceeds the noise at the comparison's
-        level; which strata pull it and why; and the stratum-size average when it is fragile.
+        level, or why they are not compared; which strata pull it and why; and the
+        stratum-size average when it is fragile. When no estimator gives a number, one
+        sentence saying why.
     """
     out: list[str] = []
+    if comparison.estimates and all(e.estimate is None for e in comparison.estimates):
+        reason = comparison.estimates[0].undefined_reason or "every estimate is undefined"
+        return [f"No estimator gives a number here: {reason}. The weak-IV robust sets above "
+                "show which effects the data do not rule out."]
     gap = comparison.gap
     names = {e.estimator for e in comparison.estimates}
     level = comparison.estimates[0].level if comparison.estimates else 0.95
@@ -164,6 +170,9 @@ def reading(comparison: Comparison) -> list[str]:
     elif "fixed_effects" not in names or complier is None:
         out.append("Fit both fixed_effects and a complier-weighted estimator (weighted or "
                    "interacted) to see how far apart they are.")
+    elif gap is not None and gap.reason:
+        out.append(f"The fixed-effects and complier-weighted estimates are not compared in "
+                   f"standard errors here: {gap.reason}.")
     size = comparison.size_weighted
     if size.estimate is not None and size.fragile:
         out.append(f"The stratum-size average of stratum effects "

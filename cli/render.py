@@ -6,10 +6,14 @@ string (titles, paths, column names, stratum labels) enters rich as `Text`, neve
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+import io
+import os
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
 from typing import Any
 
 from rich import box
+from rich.cells import cell_len
 from rich.console import Console, RenderableType
 from rich.padding import Padding
 from rich.table import Table
@@ -36,15 +40,93 @@ __all__ = ["FULL_STRATA", "make_console", "render_run", "render_check", "render_
 FULL_STRATA = 30
 """Up to this many strata the per-stratum table is shown in full."""
 _SHOWN_WHEN_MANY = 15
+_GAP = 3
+"""Cells between two columns of a borderless SIMPLE_HEAD table (padding, divider, padding)."""
+_KEY_MIN = 12
+
+
+class _Console(Console):
+    """A console that stops printing, instead of exiting, when its reader goes away.
+
+    `strativ run ... | head` closes the pipe early; the run must still write its result
+    files and exit 0, so the rest of the report is dropped rather than the run aborted.
+    """
+
+    def on_broken_pipe(self) -> None:
+        self.quiet = True
+        try:  # later flushes (also at interpreter exit) go nowhere instead of failing
+            target = self.file.fileno()
+        except (OSError, ValueError, AttributeError, io.UnsupportedOperation):
+            return
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        try:
+            os.dup2(devnull, target)
+        finally:
+            os.close(devnull)
 
 
 def make_console(*, stderr: bool = False) -> Console:
     """Return a console on stdout (or stderr) without syntax highlighting.
 
     Width and colour follow the terminal; ``COLUMNS`` and ``NO_COLOR`` override them. The
-    stderr console does not hard-wrap, so that each message stays one line in a log.
+    stderr console does not hard-wrap, so that each message stays one line in a log. A
+    closed pipe silences the console instead of ending the program.
     """
-    return Console(stderr=stderr, highlight=False, soft_wrap=stderr)
+    return _Console(stderr=stderr, highlight=False, soft_wrap=stderr)
+
+
+@dataclass(frozen=True, slots=True)
+class _Column:
+    """One table column: its header (lines separated by newlines) and its cells."""
+
+    header: str
+    cells: Sequence[Text]
+
+    def width(self) -> int:
+        lines = self.header.split("\n") + [c.plain for c in self.cells]
+        return max(cell_len(line) for line in lines)
+
+
+def _col(header: str, cells: Iterable[Any]) -> _Column:
+    return _Column(header, [_t(c) for c in cells])
+
+
+def _table(key: _Column, columns: Sequence[_Column], key_width: int | None) -> Table:
+    table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
+    table.add_column(key.header, justify="left", overflow="fold", max_width=key_width)
+    for column in columns:
+        table.add_column(column.header, justify="right", no_wrap=True)
+    for i, label in enumerate(key.cells):
+        table.add_row(label, *(column.cells[i] for column in columns))
+    return table
+
+
+def _print_table(console: Console, key: _Column, blocks: Sequence[Sequence[_Column]]) -> None:
+    """Print a table whose first column names the rows, without ever wrapping or cutting a
+    number: the key column wraps first; when the numbers still do not fit the console, the
+    table is printed as several stacked tables (split between `blocks` where possible), each
+    repeating the key column and giving it the room left over."""
+    columns = [c for block in blocks for c in block]
+    natural = key.width()
+    least = min(natural, max(_KEY_MIN, console.width // 4))
+    room = console.width - least
+    groups: list[list[_Column]] = [[]]
+    used = 0
+    for block in blocks if sum(_GAP + c.width() for c in columns) > room else [columns]:
+        if groups[-1] and used + sum(_GAP + c.width() for c in block) > room:
+            groups.append([])
+            used = 0
+        for column in block:  # a block wider than the room is split by column
+            if groups[-1] and used + _GAP + column.width() > room:
+                groups.append([])
+                used = 0
+            groups[-1].append(column)
+            used += _GAP + column.width()
+    for i, group in enumerate(groups):
+        if i:
+            console.print()
+        spare = console.width - sum(_GAP + c.width() for c in group)
+        console.print(_table(key, group, max(least, min(natural, spare))))
 
 
 def _t(value: Any, style: str = "") -> Text:
@@ -77,26 +159,21 @@ def _header(console: Console, spec: Spec, dataset: Dataset) -> None:
         f"{spec.assignment}, sampling {spec.sampling}; offer probabilities ", _t(probs)))
 
 
-def _comparison_table(result: OutcomeResult) -> Table:
-    comp = result.comparison
-    level = comp.estimates[0].level
-    table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
-    table.add_column("estimator")
-    table.add_column("estimate", justify="right")
-    table.add_column("std. error", justify="right")
-    table.add_column(f"{level:.0%} interval", justify="right")
-    table.add_column("weak-IV robust set", justify="right")
-    table.add_column("first-stage F", justify="right")
-    for est in comp.estimates:
-        cs = est.confidence_set
-        table.add_row(_t(ESTIMATOR_NAMES[est.estimator]), _t(format_number(est.estimate)),
-                      _t(format_number(est.std_error)), _t(format_interval(est.interval)),
-                      _t(format_set(cs.shape, cs.lower, cs.upper)),
-                      _t(format_number(est.first_stage_f, digits=3)))
-    return table
+def _comparison_table(console: Console, result: OutcomeResult) -> None:
+    estimates = result.comparison.estimates
+    level = estimates[0].level
+    sets = (e.confidence_set for e in estimates)
+    key = _col("estimator", (ESTIMATOR_NAMES[e.estimator] for e in estimates))
+    _print_table(console, key, [
+        [_col("estimate", (format_number(e.estimate) for e in estimates)),
+         _col("std. error", (format_number(e.std_error) for e in estimates)),
+         _col(f"{level:.0%} interval", (format_interval(e.interval) for e in estimates))],
+        [_col("weak-IV robust set", (format_set(c.shape, c.lower, c.upper) for c in sets)),
+         _col("first-stage F", (format_number(e.first_stage_f, digits=3) for e in estimates))],
+    ])
 
 
-def _strata_table(result: OutcomeResult) -> tuple[Table, str | None]:
+def _strata_table(console: Console, result: OutcomeResult) -> str | None:
     rows = result.comparison.strata.rows
     shown = rows
     caption = None
@@ -106,19 +183,18 @@ def _strata_table(result: OutcomeResult) -> tuple[Table, str | None]:
         hidden = sum(r.n for r in rows) - sum(r.n for r in shown)
         caption = (f"{len(shown)} of {len(rows)} strata shown: those that move the "
                    f"fixed-effects estimate most; {rest} more ({hidden:,} rows) are in strata.csv")
-    table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
-    for name in ("stratum", "n", "offer\nshare", "take-up\noffered", "take-up\nnot offered",
-                 "ITT", "first\nstage", "stratum\neffect", "weight\nFE", "weight\ncomplier"):
-        table.add_column(name, justify="left" if name == "stratum" else "right",
-                         no_wrap=name == "stratum")
-    for r in shown:
-        table.add_row(_t(r.label), _t(f"{r.n:,}"), _t(_share(r.offer_share)),
-                      _t(_share(r.take_up_offered)), _t(_share(r.take_up_not_offered)),
-                      _t(format_number(r.itt)), _t(format_number(r.first_stage, digits=3)),
-                      _t(format_number(r.effect)),
-                      _t(format_number(r.weight_fixed_effects, digits=3)),
-                      _t(format_number(r.weight_complier, digits=3)))
-    return table, caption
+    _print_table(console, _col("stratum", (r.label for r in shown)), [
+        [_col("n", (f"{r.n:,}" for r in shown)),
+         _col("offer\nshare", (_share(r.offer_share) for r in shown)),
+         _col("take-up\noffered", (_share(r.take_up_offered) for r in shown)),
+         _col("take-up\nnot offered", (_share(r.take_up_not_offered) for r in shown))],
+        [_col("ITT", (format_number(r.itt) for r in shown)),
+         _col("first\nstage", (format_number(r.first_stage, digits=3) for r in shown)),
+         _col("stratum\neffect", (format_number(r.effect) for r in shown)),
+         _col("weight\nFE", (format_number(r.weight_fixed_effects, digits=3) for r in shown)),
+         _col("weight\ncomplier", (format_number(r.weight_complier, digits=3) for r in shown))],
+    ])
+    return caption
 
 
 def _excluded(console: Console, result: OutcomeResult) -> None:
@@ -141,16 +217,15 @@ def _outcome(console: Console, result: OutcomeResult) -> None:
     console.print(f"{first.n_units:,} rows, {first.n_strata} strata used, {n_excluded} excluded"
                   + (f"; {result.missing:,} rows without this outcome left out"
                      if result.missing else ""))
-    console.print(_comparison_table(result))
+    _comparison_table(console, result)
     console.print("what each targets:")
     for est in comp.estimates:
         console.print(_indented(ESTIMATOR_NAMES[est.estimator], ": ", _t(est.estimand)))
         if est.undefined_reason:
             console.print(_indented("undefined: ", _t(est.undefined_reason), indent=4))
-    table, caption = _strata_table(result)
     console.print()
     console.print("per stratum:")
-    console.print(table)
+    caption = _strata_table(console, result)
     if caption:
         console.print(_t(caption))
     _excluded(console, result)
@@ -210,21 +285,16 @@ def render_check(console: Console, spec: Spec, dataset: Dataset, summary: Design
     for name, missing in summary.missing_outcomes:
         console.print(Text.assemble("outcome   ", _t(name), f": {missing:,} rows missing"
                                     if missing else ": complete"))
-    table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False)
-    for name in ("stratum", "n", "offer\nshare", "take-up\noffered", "take-up\nnot offered"):
-        table.add_column(name, justify="left" if name == "stratum" else "right",
-                         no_wrap=name == "stratum")
+    shown = summary.strata[:FULL_STRATA]
+    columns = [_col("n", (f"{s.n:,}" for s in shown)),
+               _col("offer\nshare", (_share(s.n_offered / s.n) for s in shown)),
+               _col("take-up\noffered", (_share(s.take_up_offered) for s in shown)),
+               _col("take-up\nnot offered", (_share(s.take_up_not_offered) for s in shown))]
     if probabilities is not None:
-        table.add_column("design\nprobability", justify="right")
-    for s in summary.strata[:FULL_STRATA] if len(summary.strata) > FULL_STRATA \
-            else summary.strata:
-        cells = [_t(s.label), _t(f"{s.n:,}"), _t(_share(s.n_offered / s.n)),
-                 _t(_share(s.take_up_offered)), _t(_share(s.take_up_not_offered))]
-        if probabilities is not None:
-            p = probabilities.get(s.label)
-            cells.append(_t("\u2013" if p is None else f"{p:g}"))
-        table.add_row(*cells)
-    console.print(table)
+        columns.append(_col("design\nprobability", (
+            "\u2013" if probabilities.get(s.label) is None else f"{probabilities[s.label]:g}"
+            for s in shown)))
+    _print_table(console, _col("stratum", (s.label for s in shown)), [columns])
     if len(summary.strata) > FULL_STRATA:
         console.print(f"... {len(summary.strata) - FULL_STRATA} more strata")
     excluded = [s for s in summary.strata if s.excluded_reason]
@@ -233,6 +303,8 @@ def render_check(console: Console, spec: Spec, dataset: Dataset, summary: Design
         for s in excluded[:10]:
             console.print(Text.assemble("  ", _t(s.label), f" (n = {s.n:,}): ",
                                         _t(s.excluded_reason)))
+        if len(excluded) > 10:
+            console.print(f"  ... and {len(excluded) - 10} more")
     console.print(Text.assemble("runnable: ", _t(", ".join(spec.estimators)), " on ",
                                 _t(", ".join(spec.columns.outcome))))
 

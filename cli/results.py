@@ -20,7 +20,7 @@ from typing import Any
 
 from .errors import UsageError
 from .runner import Run
-from .spec import Spec
+from .spec import Spec, glob_pattern
 
 __all__ = [
     "SCHEMA_VERSION",
@@ -96,8 +96,7 @@ def check_output_paths(spec: Spec, out_dir: Path, formats: tuple[str, ...]) -> N
                              "choose another output directory with --out or output.dir")
         for entry in spec.data_entries:
             if set("*?[") & set(entry):
-                pattern = str(Path(entry).expanduser() if Path(entry).is_absolute()
-                              else spec.path.parent / entry)
+                pattern = glob_pattern(entry, spec.path.parent)
                 if fnmatch.fnmatch(str(resolved), pattern) or \
                         fnmatch.fnmatch(str(target), pattern):
                     raise UsageError(f"{target} would match the data pattern '{entry}', so a "

@@ -7,6 +7,9 @@ core's typed errors into data errors that name the column.
 
 from __future__ import annotations
 
+import warnings
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Any
 
@@ -125,6 +128,26 @@ class DesignSummary:
     """Take-up share among all not-offered rows."""
     missing_outcomes: tuple[tuple[str, int], ...]
     """(outcome, rows without it)."""
+
+
+@contextmanager
+def _floating_point_guard(name: str, values: np.ndarray) -> Iterator[None]:
+    """Stop with a data error when the core's arithmetic overflows or loses its meaning.
+
+    The core never warns on sound input; a floating-point warning means its numbers would
+    be inf or NaN (in practice: outcome values too large to square in double precision).
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        try:
+            yield
+        except (RuntimeWarning, FloatingPointError) as exc:
+            finite = values[np.isfinite(values)]
+            largest = float(np.abs(finite).max()) if finite.size else 0.0
+            raise DataError(None, name, (), f"the estimators' arithmetic failed on this "
+                            f"outcome ({exc}); its largest absolute value is {largest:.3g}",
+                            "rescale the outcome (divide it by a power of ten) so that its "
+                            "values stay well below 1e+50") from None
 
 
 def _cells(dataset: Dataset, outcome: np.ndarray, keep: np.ndarray, *,
@@ -345,12 +368,22 @@ def _fit_warnings(outcomes: list[OutcomeResult]) -> list[str]:
             out.append(f"outcome '{result.outcome}' is missing in {result.missing} rows "
                        f"({offered} offered, {result.missing - offered} not offered); they are "
                        "left out for this outcome (attrition by stratum and arm in results.json)")
+        undefined: dict[str, list[str]] = {}
+        weak: list[str] = []
         for est in result.comparison.estimates:
             f = est.first_stage_f
-            if f is not None and f < WEAK_FIRST_STAGE_F:
-                out.append(f"'{result.outcome}', {est.estimator}: the first stage is weak "
-                           f"(F = {f:.1f}, below {WEAK_FIRST_STAGE_F:g}); read the "
-                           "confidence set rather than the normal interval")
+            if est.estimate is None:
+                undefined.setdefault(est.undefined_reason or "undefined", []).append(
+                    est.estimator)
+            elif f is not None and f < WEAK_FIRST_STAGE_F:
+                weak.append(f"{est.estimator} F = {f:.1f}")
+        for reason, names in undefined.items():
+            out.append(f"'{result.outcome}': no estimate from {', '.join(names)}: {reason}; "
+                       "only the weak-IV robust confidence set is reported")
+        if weak:
+            out.append(f"'{result.outcome}': the first stage is weak ({', '.join(weak)}; below "
+                       f"{WEAK_FIRST_STAGE_F:g}); read the confidence set rather than the "
+                       "normal interval")
     return out
 
 
@@ -375,7 +408,8 @@ def run_spec(spec: Spec, dataset: Dataset) -> Run:
         When the offer probability mapping does not match the strata.
     DataError
         When the core rejects the data (for example no stratum with both arms, or clusters
-        that span strata) or an outcome is missing in every row.
+        that span strata), an outcome is missing in every row, or the core's arithmetic
+        overflows on an outcome (values far too large for double precision).
     """
     probabilities = design_probabilities(spec, dataset)
     use_cluster = spec.variance == "cluster"
@@ -386,16 +420,18 @@ def run_spec(spec: Spec, dataset: Dataset) -> Run:
         keep = ~np.isnan(values)
         if not keep.any():
             raise DataError(None, name, (), "the outcome is missing in every row")
-        cells = _cells(dataset, values, keep, cluster=use_cluster, spec=spec)
-        present = set(cells.labels)
-        mapping = None if probabilities is None else \
-            {k: v for k, v in probabilities.items() if k in present}
-        try:
-            comparison = fit_all(cells, estimators=spec.estimators, variance=spec.variance,
-                                 assignment=spec.assignment, sampling=spec.sampling,
-                                 level=spec.level, offer_probability=mapping)
-        except EstimatorError as exc:
-            raise _data_error(exc, spec) from None
+        with _floating_point_guard(name, values):
+            cells = _cells(dataset, values, keep, cluster=use_cluster, spec=spec)
+            present = set(cells.labels)
+            mapping = None if probabilities is None else \
+                {k: v for k, v in probabilities.items() if k in present}
+            try:
+                comparison = fit_all(cells, estimators=spec.estimators,
+                                     variance=spec.variance, assignment=spec.assignment,
+                                     sampling=spec.sampling, level=spec.level,
+                                     offer_probability=mapping)
+            except EstimatorError as exc:
+                raise _data_error(exc, spec) from None
         results.append(OutcomeResult(name, cells, comparison, int((~keep).sum()),
                                      _attrition(name, values, dataset)))
     return Run(spec, dataset, probabilities, tuple(results),

@@ -28,6 +28,7 @@ __all__ = [
     "Columns",
     "OfferProbability",
     "Spec",
+    "glob_pattern",
     "load_spec",
     "suggest",
 ]
@@ -227,16 +228,13 @@ def _compose(text: str, path: Path) -> tuple[Any, dict[KeyPath, int]]:
             raise SpecError(path, None, None, "the spec is empty",
                             "start from `strativ init DATA`, or give at least 'data' and 'columns'")
         lines: dict[KeyPath, int] = {(): node.start_mark.line + 1}
-        _index(loader, node, (), lines, path)
+        _index(loader, node, (), lines, path, set())
         data = loader.construct_document(node)
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
         problem = exc.problem or exc.context or "invalid YAML"
-        tabs = "\\t" in problem or "\t" in problem
-        hint = "indent with spaces; YAML does not allow tabs" if tabs \
-            else "check the indentation and the ':' after each key"
         raise SpecError(path, mark.line + 1 if mark else None, None,
-                        f"not valid YAML: {problem}", hint) from None
+                        f"not valid YAML: {problem}", _yaml_hint(exc, problem)) from None
     except yaml.YAMLError as exc:
         raise SpecError(path, None, None, f"not valid YAML: {exc}") from None
     finally:
@@ -244,8 +242,24 @@ def _compose(text: str, path: Path) -> tuple[Any, dict[KeyPath, int]]:
     return data, lines
 
 
+def _yaml_hint(exc: yaml.MarkedYAMLError, problem: str) -> str:
+    """Return how to fix the YAML error `exc`."""
+    if "\\t" in problem or "\t" in problem:
+        return "indent with spaces; YAML does not allow tabs"
+    if isinstance(exc, yaml.constructor.ConstructorError):
+        return "a spec holds plain values: remove the '!' tag"
+    if "another document" in problem:
+        return "a spec is a single YAML document: remove the '---' or '...' line"
+    return "check the indentation and the ':' after each key"
+
+
 def _index(loader: yaml.SafeLoader, node: yaml.Node, keys: KeyPath,
-           lines: dict[KeyPath, int], path: Path) -> None:
+           lines: dict[KeyPath, int], path: Path, seen_nodes: set[int]) -> None:
+    # An alias repeats a node; walking it again would take exponential time on nested
+    # aliases ("billion laughs"), and its lines are those of the anchor anyway.
+    if id(node) in seen_nodes:
+        return
+    seen_nodes.add(id(node))
     if isinstance(node, yaml.MappingNode):
         loader.flatten_mapping(node)
         seen: dict[Any, int] = {}
@@ -260,11 +274,11 @@ def _index(loader: yaml.SafeLoader, node: yaml.Node, keys: KeyPath,
                                 "keep one of them")
             seen[key] = line
             lines[keys + (key,)] = line
-            _index(loader, value_node, keys + (key,), lines, path)
+            _index(loader, value_node, keys + (key,), lines, path, seen_nodes)
     elif isinstance(node, yaml.SequenceNode):
         for i, item in enumerate(node.value):
             lines[keys + (i,)] = item.start_mark.line + 1
-            _index(loader, item, keys + (i,), lines, path)
+            _index(loader, item, keys + (i,), lines, path, seen_nodes)
 
 
 class _Checker:
@@ -384,9 +398,13 @@ def load_spec(path: Path | str) -> Spec:
         text = path.read_text(encoding="utf-8-sig")
     except FileNotFoundError:
         raise SpecError(path, None, None, "the spec file does not exist") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise SpecError(path, None, None, f"cannot read the spec file ({exc})",
-                        "save it as UTF-8 text") from None
+    except UnicodeDecodeError as exc:
+        line = exc.object[:exc.start].count(b"\n") + 1
+        raise SpecError(path, line, None, f"the spec is not UTF-8 text: byte "
+                        f"0x{exc.object[exc.start]:02x}", "save it as UTF-8 text") from None
+    except OSError as exc:
+        raise SpecError(path, None, None, f"cannot read the spec file ({exc.strerror})",
+                        "check the path and its permissions") from None
     raw, lines = _compose(text, path)
     check = _Checker(path, lines)
     top = check.mapping(raw, (), tuple(_SECTIONS))
@@ -451,8 +469,10 @@ def _data_files(check: _Checker, value: Any,
         keys = ("data", i) if isinstance(value, list) else ("data",)
         target = Path(entry).expanduser()
         target = target if target.is_absolute() else base / target
-        if _GLOB_CHARS & set(entry):
-            matches = sorted(Path(m) for m in glob.glob(str(target), recursive=True))
+        pattern = bool(_GLOB_CHARS & set(entry)) and not target.is_file()  # "a[1].csv" is a file
+        if pattern:
+            matches = sorted(Path(m) for m in glob.glob(glob_pattern(entry, base),
+                                                        recursive=True))
             matches = [m for m in matches if m.is_file()]
             if not matches:
                 raise check.error(keys, f"the pattern '{entry}' matches no file "
@@ -473,13 +493,37 @@ def _data_files(check: _Checker, value: Any,
         for match in matches:
             resolved = match.resolve()
             if resolved.suffix.lower() not in DATA_SUFFIXES:
-                raise check.error(keys, f"'{match.name}' is not a CSV or Parquet file",
-                                  "strativ reads files ending in .csv, .parquet or .pq")
+                hint = f"the pattern '{entry}' matched it; narrow the pattern, for example " \
+                    "to end in .csv" if pattern else \
+                    "strativ reads files ending in .csv, .parquet or .pq"
+                raise check.error(keys, f"'{match.name}' is not a CSV or Parquet file", hint)
             if resolved in found:
                 raise check.error(keys, f"'{match.name}' is named twice in 'data'",
                                   "list each file once, or its rows are counted twice")
             found.append(resolved)
     return entries, tuple(found)
+
+
+def glob_pattern(entry: str, base: Path) -> str:
+    """Return the glob pattern of a `data` entry: relative entries are taken below `base`,
+    whose own characters are escaped (a spec in a directory named "[2024]" still works).
+
+    Parameters
+    ----------
+    entry : str
+        The `data` entry as written in the spec.
+    base : Path
+        The spec file's directory.
+
+    Returns
+    -------
+    str
+        A pattern for `glob.glob` or `fnmatch.fnmatch`.
+    """
+    target = Path(entry).expanduser()
+    if target.is_absolute():
+        return str(target)
+    return str(Path(glob.escape(str(base))) / target)
 
 
 def _columns(check: _Checker, value: Any) -> Columns:
@@ -530,6 +574,9 @@ def _offer_probability(check: _Checker, value: Any, columns: Columns) -> OfferPr
         if isinstance(prob, bool) or not isinstance(prob, (int, float)) or not 0 < prob < 1:
             raise check.error(where, f"offer probability of stratum '{label}' is {prob!r}; "
                               "it must be a number strictly between 0 and 1")
+        if str(label) in dict(pairs):
+            raise check.error(where, f"stratum '{label}' is given twice in "
+                              "'design.offer_probability'", "keep one of them")
         pairs.append((str(label), float(prob)))
         lines.append(_line_of(check.lines, where))
     return OfferProbability("mapping", by_stratum=tuple(pairs), lines=tuple(lines))
@@ -542,7 +589,7 @@ def _level(check: _Checker, value: Any) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value < 1:
         hint = f"write {value / 100:g} for {value:g} %" \
             if isinstance(value, (int, float)) and not isinstance(value, bool) \
-            and 1 < value < 100 else "for example 0.95"
+            and 50 <= value < 100 else "for example 0.95"
         raise check.error(keys, f"'inference.level' is {value!r}; it must be a number "
                           "strictly between 0 and 1", hint)
     return float(value)

@@ -131,14 +131,15 @@ def starter_spec(data: Path, spec_path: Path) -> str:
     numeric = [p for p in profiles if p.kind == "numeric" and not p.few_levels]
     grouped = [p for p in profiles if p.few_levels]
     rel = os.path.relpath(data.resolve(), spec_path.resolve().parent)
-    width = max(len(p.name) for p in profiles) if profiles else 0
+    shown = {p.name: _scalar(p.name) for p in profiles}  # one line each, even with "\n"
+    width = max(len(text) for text in shown.values()) if profiles else 0
     out = [
         f"# strativ spec: a starter written by `strativ init` from {data.name}",
         f"# ({profiles[0].rows if profiles else 0} rows, {len(profiles)} columns).",
         "# Fill in the commented roles, then:  strativ check " + spec_path.name,
         "#",
         "# Columns found:",
-        *[f"#   {p.name.ljust(width)}  {p.describe()}" for p in profiles],
+        *[f"#   {shown[p.name].ljust(width)}  {p.describe()}" for p in profiles],
         "",
         f"title: {_scalar(data.stem)}",
         f"data: {_scalar(rel)}   # a file, a list of files, or a glob such as \"round_*.csv\"",

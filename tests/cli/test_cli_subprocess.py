@@ -45,3 +45,21 @@ def test_installed_command_runs_the_demo_and_refuses_a_bad_spec(tmp_path: Path) 
     assert "spec.yaml, line 5: unknown key 'ofer' under 'columns'" in bad.stderr
     assert "Traceback" not in bad.stderr + bad.stdout
     assert not (tmp_path / "bad_out").exists()
+
+
+def test_a_closed_stdout_pipe_still_writes_the_results(tmp_path: Path) -> None:
+    write_csv(tmp_path / "data.csv", study_rows())
+    (tmp_path / "spec.yaml").write_text(MINIMAL_SPEC)
+    read_end, write_end = os.pipe()
+    os.close(read_end)  # like `strativ run ... | head` once head has exited
+    env = {**os.environ, "COLUMNS": "120", "NO_COLOR": "1"}
+    try:
+        done = subprocess.run([*_command(), "run", "spec.yaml", "--out", "out"], cwd=tmp_path,
+                              env=env, stdout=write_end, stderr=subprocess.PIPE, text=True,
+                              timeout=120, check=False)
+    finally:
+        os.close(write_end)
+    # source: README exit codes (0 = success); the report has no reader, the files still do
+    assert done.returncode == 0, done.stderr
+    assert "Traceback" not in done.stderr
+    assert sorted(p.name for p in (tmp_path / "out").iterdir()) == ["results.json", "strata.csv"]
