@@ -22,6 +22,8 @@ from typing import Any
 
 import numpy as np
 
+from strativ.estimators import OUTCOME_LIMIT
+
 from .errors import DataError
 from .spec import Spec, suggest
 from .values import Parsed, parse_binary, parse_label, parse_number
@@ -332,6 +334,14 @@ def _parse_file(path: Path, table: _Table, spec: Spec) -> dict[str, Parsed]:
                               "(12.5 and 1000, not 12,5 or 1,000)" if comma
                               else "fix or blank out these values (blank = missing)")
         out[name] = parsed
+    for name in cols.outcome:
+        parsed = out[name]
+        huge = np.flatnonzero(~parsed.missing & ~(np.abs(parsed.values) <= OUTCOME_LIMIT))
+        if huge.size:
+            raise _bad_values(path, name, table, Parsed(parsed.values, parsed.missing, huge),
+                              table.columns[name], f"outcome values beyond +/-{OUTCOME_LIMIT:g} "
+                              "overflow sums of squares", "rescale the outcome (for example "
+                              "to thousands or millions)")
     if spec.offer_probability.column is not None:
         name = spec.offer_probability.column
         parsed = out[name]

@@ -4,7 +4,7 @@ Pure functions on arrays and cell tables; no I/O, no printing. Build a cell tabl
 `build_cells` (or `cells_from_frame`), then `fit` one estimator or `fit_all` side by side.
 """
 
-from .cells import CellTable, ClusterSums, build_cells, cells_from_frame
+from .cells import OUTCOME_LIMIT, CellTable, ClusterSums, build_cells, cells_from_frame
 from .errors import DegenerateDesignError, EstimatorError, InputError
 from .fit import ESTIMATORS, fit, fit_all
 from .results import (
@@ -22,6 +22,7 @@ from .results import (
 
 __all__ = [
     "ESTIMATORS",
+    "OUTCOME_LIMIT",
     "CellTable",
     "ClusterSums",
     "Comparison",

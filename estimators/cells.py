@@ -140,13 +140,25 @@ def _factorize(values: np.ndarray, argument: str) -> tuple[np.ndarray, tuple[Any
     return codes.astype(np.int64), labels
 
 
-def _check_finite(y: np.ndarray) -> None:
+OUTCOME_LIMIT = 1e150
+"""Largest outcome magnitude accepted: beyond it sums of squares overflow."""
+
+
+def _check_outcome(y: np.ndarray) -> None:
     finite = np.isfinite(y)
     if not finite.all():
         row = int(np.flatnonzero(~finite)[0])
         raise InputError(
             "outcome",
             f"non-finite value {float(y[row])!r} at index {row}; drop or impute it first.",
+        )
+    huge = np.abs(y) > OUTCOME_LIMIT
+    if huge.any():
+        row = int(np.flatnonzero(huge)[0])
+        raise InputError(
+            "outcome",
+            f"value {float(y[row])!r} at index {row} is beyond +/-{OUTCOME_LIMIT:g}, where sums "
+            "of squares overflow; rescale the outcome (for example to thousands).",
         )
 
 
@@ -169,7 +181,10 @@ def _fused_sums(
         elif values.dtype.kind not in "iu":
             return None
         arrays.append(values)
-    return fine_cell_sums_fused(y, arrays[0], arrays[1], raw, lookup, lo, n_strata)
+    sums = fine_cell_sums_fused(y, arrays[0], arrays[1], raw, lookup, lo, n_strata)
+    if sums is not None and (np.abs(sums[3]).max() > OUTCOME_LIMIT or sums[2].max() > 1e300):
+        return None  # the checked path names the offending row
+    return sums
 
 
 def _cell_arrays_from_fine(
@@ -316,7 +331,7 @@ def build_cells(
         n_strata = len(labels)
         d = _as_binary(d_raw, "take_up")
         z = _as_binary(z_raw, "offer")
-        _check_finite(y)
+        _check_outcome(y)
         cell = codes * 2 + z
         # centre on one value of each stratum (any will do), so no sum sees a large level
         first_row = np.full(n_strata, -1, dtype=np.int64)

@@ -18,8 +18,8 @@ def _within_spread(design: Design) -> np.ndarray:
     return (design.cov / design.n[..., None, None]).sum(axis=1)
 
 
-def _objective(design: Design, spread: np.ndarray):
-    itt, fs = design.itt, design.first_stage
+def _objective(design: Design, spread: np.ndarray, unit: float):
+    itt, fs = design.itt / unit, design.first_stage
     a, b, c = spread[:, 0, 0], spread[:, 0, 1], spread[:, 1, 1]
 
     def value(t):
@@ -74,13 +74,17 @@ def constant_effect_test(design: Design, *, theta: float | None, scale: float | 
             None, k - 1, None, None,
             "a stratum has no within-cell variation in outcome or take-up",
         )
-    value, slope = _objective(design, spread)
-    centre = 0.0 if theta is None else theta
+    # J is invariant to the outcome's scale: solve in units of the outcome's spread so that
+    # squares of squares cannot overflow, and scale the common effect back at the end
+    unit = float(np.sqrt(spread[:, 0, 0].max()))
+    scaled = spread / np.array([[unit * unit, unit], [unit, 1.0]])
+    value, slope = _objective(design, scaled, unit)
+    centre = 0.0 if theta is None else theta / unit
     fs = design.first_stage
     with np.errstate(divide="ignore", invalid="ignore"):
-        effects = design.itt / fs
+        effects = design.itt / unit / fs
     effects = effects[np.isfinite(effects)]
-    width = scale if scale else 1.0
+    width = scale / unit if scale else 1.0
     if effects.size:
         width = max(width, float(np.ptp(np.append(effects, centre))))
     grid = np.linspace(centre - 10.0 * width, centre + 10.0 * width, 801)
@@ -105,7 +109,7 @@ def constant_effect_test(design: Design, *, theta: float | None, scale: float | 
         statistic=j_best,
         df=k - 1,
         p_value=float(chi2.sf(j_best, k - 1)),
-        effect=t_best,
+        effect=t_best * unit,
         reason=None,
     )
 

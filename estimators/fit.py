@@ -303,7 +303,7 @@ def fit_all(
     fe = fixed_effects_form(design)
     late = complier_form(design, saturated=True)
     notes = []
-    if probability is None and {"weighted", "interacted"} <= set(names):
+    if probability is None and {"weighted", "interacted"} <= set(names) and late.denominator:
         notes.append(
             "weighted and interacted share one point estimate here: with estimated offer "
             "shares and no covariates both weight strata by n*first stage (METHODS.md §3)"

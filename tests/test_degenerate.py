@@ -416,3 +416,28 @@ def test_cells_that_are_not_a_cell_table_are_rejected():
     # source: fit docstring, cells come from build_cells or cells_from_frame
     with pytest.raises(InputError, match=r"^cells: expected a CellTable"):
         fit({"n": [[1, 1]]})
+
+
+def test_outcomes_near_the_overflow_limit_scale_every_result_exactly():
+    rng = np.random.default_rng(7)
+    n = 400
+    s = rng.integers(0, 4, n)
+    z = rng.integers(0, 2, n)
+    d = (rng.random(n) < 0.2 + 0.6 * z).astype(int)
+    y = 10 + 2 * d + rng.normal(size=n)
+    base = fit_all(build_cells(y, d, z, s))
+    big = fit_all(build_cells(y * 2.0**460, d, z, s))  # about 1e138, exact in binary
+    # common practice, no source: ratio estimators are equivariant to the outcome's scale
+    for a, b in zip(base.estimates, big.estimates, strict=True):
+        assert b.estimate == pytest.approx(a.estimate * 2.0**460, rel=1e-12)
+        assert b.std_error == pytest.approx(a.std_error * 2.0**460, rel=1e-10)
+    assert big.constant_effect.statistic == pytest.approx(base.constant_effect.statistic,
+                                                          rel=1e-9)
+    assert_no_silent_nan(big)
+
+
+def test_outcomes_beyond_the_overflow_limit_are_refused_with_the_row():
+    y = np.array([1.0, 2.0, 3e160, 4.0])
+    # common practice, no source: squares of 1e155 and more overflow doubles
+    with pytest.raises(InputError, match=r"value 3e\+160 at index 2 is beyond \+/-1e\+150"):
+        build_cells(y, [0, 1, 0, 1], [0, 1, 0, 1], [0, 0, 0, 0])

@@ -206,7 +206,8 @@ def test_an_outcome_too_large_for_double_precision_is_a_data_error(study: Study,
     write_csv(study.data, rows)
     result = invoke("run", study.spec, "--out", study.out)
     # common practice, no source: squares of 1e200 exceed the double range (about 1.8e308)
-    assert_clean_failure(result, DATA_ERROR, "column 'y': the estimators' arithmetic failed",
+    assert_clean_failure(result, DATA_ERROR, "column 'y'",
+                         "outcome values beyond +/-1e+150 overflow sums of squares",
                          "rescale the outcome")
     assert "RuntimeWarning" not in result.output
     assert not study.out.exists()
