@@ -116,6 +116,33 @@ def _complier_estimate(comparison: Comparison) -> Estimate | None:
     return None
 
 
+def _p_text(p: float) -> str:
+    return "p < 0.001" if p < 0.001 else f"p = {format_number(p, digits=2)}"
+
+
+def _diagnostics(comparison: Comparison, level: float) -> list[str]:
+    """Sentences for the constant-effect test and first stages negative beyond noise."""
+    out = []
+    test = comparison.constant_effect
+    if test is not None and test.statistic is not None:
+        stat = f"J = {format_number(test.statistic, digits=3)} on {test.df} degrees of " \
+            f"freedom, {_p_text(test.p_value)}"
+        if test.p_value < 1.0 - level:
+            out.append(f"The test that every stratum has the same effect rejects it ({stat}): "
+                       "effects differ across strata, which is when the weightings matter.")
+        else:
+            out.append(f"The test that every stratum has the same effect does not reject it "
+                       f"({stat}); with equal effects every weighting targets the same number.")
+    negative = comparison.negative_first_stage
+    if negative:
+        names = ", ".join(str(n.label) for n in negative[:5])
+        more = f" and {len(negative) - 5} more" if len(negative) > 5 else ""
+        out.append(f"The first stage is negative beyond noise in {names}{more}: there the "
+                   "offer lowered take-up, so some units may take up because they were not "
+                   "offered, which the LATE assumptions rule out.")
+    return out
+
+
 def reading(comparison: Comparison) -> list[str]:
     """Return the plain-language reading of one comparison, one sentence per item.
 
@@ -129,7 +156,8 @@ def reading(comparison: Comparison) -> list[str]:
     list of str
         How far the fixed-effects estimate lies from the complier-weighted one (in standard
         errors of the difference) and whether that exceeds the noise at the comparison's
-        level, or why they are not compared; which strata pull it and why; and the
+        level, or why they are not compared; which strata pull it and why; the
+        constant-effect test; strata whose first stage is negative beyond noise; and the
         stratum-size average when it is fragile. When no estimator gives a number, one
         sentence saying why.
     """
@@ -173,6 +201,7 @@ def reading(comparison: Comparison) -> list[str]:
     elif gap is not None and gap.reason:
         out.append(f"The fixed-effects and complier-weighted estimates are not compared in "
                    f"standard errors here: {gap.reason}.")
+    out.extend(_diagnostics(comparison, level))
     size = comparison.size_weighted
     if size.estimate is not None and size.fragile:
         out.append(f"The stratum-size average of stratum effects "

@@ -146,6 +146,8 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
             "gap": comp["gap"],
             "size_weighted": comp["size_weighted"],
             "single_unit_cells": comp["strata"]["single_unit_cells"],
+            "constant_effect": comp["constant_effect"],
+            "negative_first_stage": comp["negative_first_stage"],
             "notes": comp["notes"],
         })
     spec = run.spec.to_dict()

@@ -306,7 +306,7 @@ def fit_all(
     if probability is None and {"weighted", "interacted"} <= set(names) and late.denominator:
         notes.append(
             "weighted and interacted share one point estimate here: with estimated offer "
-            "shares and no covariates both weight strata by n*first stage (METHODS.md §3)"
+            "shares and no covariates both weight strata by n*first stage"
         )
     if design.single_unit_cells:
         notes.append(
