@@ -12,6 +12,9 @@ from .results import ConstantEffectTest, NegativeFirstStage
 
 __all__ = ["constant_effect_test", "negative_first_stages"]
 
+GRID_QUANTILES = np.linspace(0.0, 1.0, 41)
+"""Quantiles of the stratum effects added to the search grid when there are many strata."""
+
 
 def _within_spread(design: Design) -> np.ndarray:
     """Per stratum, the 2x2 within variance of (ITT_s, FS_s) read as a form in (1, -t)."""
@@ -87,8 +90,10 @@ def constant_effect_test(design: Design, *, theta: float | None, scale: float | 
     width = scale / unit if scale else 1.0
     if effects.size:
         width = max(width, float(np.ptp(np.append(effects, centre))))
-    grid = np.linspace(centre - 10.0 * width, centre + 10.0 * width, 801)
-    grid = np.concatenate([grid, effects])
+    grid = np.linspace(centre - 10.0 * width, centre + 10.0 * width, 161)
+    if effects.size:  # every stratum's own effect is a local candidate; quantiles beyond 40
+        candidates = effects if effects.size <= 40 else np.quantile(effects, GRID_QUANTILES)
+        grid = np.concatenate([grid, candidates])
     grid.sort()
     values = value(grid)
     best = int(np.argmin(values))
