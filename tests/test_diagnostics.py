@@ -64,3 +64,27 @@ def test_positive_first_stages_flag_nothing():
     y, d, z, s = _rows()
     # source: METHODS.md §5
     assert fit_all(build_cells(y, d, z, s)).negative_first_stage == ()
+
+
+def test_constant_effect_minimum_holds_with_many_strata():
+    rng = np.random.default_rng(SEED + 1)
+    k, size = 60, 80
+    s = np.repeat(np.arange(k), size)
+    z = np.tile(np.repeat([0, 1], size // 2), k)
+    d = (rng.random(s.size) < 0.15 + 0.6 * z).astype(int)
+    y = rng.normal(size=s.size) + rng.normal(1.0, 2.0, k)[s] * d
+    cells = build_cells(y, d, z, s)
+    comparison = fit_all(cells)
+    test, rows = comparison.constant_effect, comparison.strata.rows
+    n = cells.n.astype(float)
+    a = (cells.ss_outcome / (n - 1) / n).sum(1)
+    b = (cells.ss_cross / (n - 1) / n).sum(1)
+    c = (cells.ss_take_up / (n - 1) / n).sum(1)
+    itt = np.array([r.itt for r in rows])
+    fs = np.array([r.first_stage for r in rows])
+    grid = np.linspace(-20.0, 20.0, 40001)[:, None]
+    brute = ((itt - grid * fs) ** 2 / (a - 2 * grid * b + grid**2 * c)).sum(axis=1)
+    # source: METHODS.md §5, J = min_theta sum_s Delta_s^2 / Var(Delta_s), df = K - 1
+    assert test.statistic <= brute.min() + 1e-9
+    assert test.statistic == pytest.approx(brute.min(), rel=1e-5)
+    assert test.df == k - 1
