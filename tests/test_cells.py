@@ -15,6 +15,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import pytest
+from core_support import ESTIMATORS, FLAVOURS, assert_close
 
 import strativ.estimators.cells as cells_module
 from strativ.estimators import (
@@ -29,15 +30,6 @@ from strativ.estimators.kernels import fused_available
 
 SEED = 20260311
 CELL_FIELDS = ("n", "mean_outcome", "mean_take_up", "ss_outcome", "ss_cross", "ss_take_up")
-FLAVOURS = (
-    ("stratified", "block", "fixed"),
-    ("stratified", "block", "random"),
-    ("stratified", "independent", "fixed"),
-    ("stratified", "independent", "random"),
-    ("robust", "block", "random"),
-    ("robust_scaled", "block", "random"),
-)
-ESTIMATORS = ("fixed_effects", "weighted", "interacted")
 
 
 @pytest.fixture(params=["numpy", "fused"])
@@ -115,23 +107,6 @@ def raw_sums(frame: pd.DataFrame) -> pd.DataFrame:
         }
     )
     return out.reset_index().rename(columns={"s": "stratum", "z": "offer"})
-
-
-def assert_close(actual: Any, expected: Any, *, rtol: float, floor: float, path: str = "") -> None:
-    """Recursive comparison of to_dict() output: floats to rtol * max(|expected|, floor)."""
-    if isinstance(expected, dict):
-        assert set(actual) == set(expected), path
-        for key in expected:
-            assert_close(actual[key], expected[key], rtol=rtol, floor=floor, path=f"{path}.{key}")
-    elif isinstance(expected, list):
-        assert len(actual) == len(expected), path
-        for i, (a, e) in enumerate(zip(actual, expected, strict=True)):
-            assert_close(a, e, rtol=rtol, floor=floor, path=f"{path}[{i}]")
-    elif isinstance(expected, float) and not isinstance(expected, bool):
-        assert isinstance(actual, float), (path, actual, expected)
-        assert abs(actual - expected) <= rtol * max(abs(expected), floor), (path, actual, expected)
-    else:
-        assert actual == expected, (path, actual, expected)
 
 
 # ---------------------------------------------------------------- build_cells vs pandas

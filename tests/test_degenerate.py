@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import pytest
+from core_support import ESTIMATORS, FLAVOUR_IDS, FLAVOURS
 
 from strativ.estimators import (
     DegenerateDesignError,
@@ -26,16 +27,6 @@ from strativ.estimators import (
 )
 
 SEED = 20260412
-ESTIMATORS = ("fixed_effects", "weighted", "interacted")
-FLAVOURS = (
-    ("stratified", "block", "fixed"),
-    ("stratified", "block", "random"),
-    ("stratified", "independent", "fixed"),
-    ("stratified", "independent", "random"),
-    ("robust", "block", "random"),
-    ("robust_scaled", "block", "random"),
-)
-FLAVOUR_IDS = [f"{v}-{a}-{s}" for v, a, s in FLAVOURS]
 
 
 def options(flavour: tuple[str, str, str]) -> dict[str, str]:

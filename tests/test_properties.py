@@ -14,26 +14,17 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+from core_support import ESTIMATORS, assert_close
+from core_support import FLAVOURS as CORE_FLAVOURS
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from strativ.estimators import build_cells, fit_all
 
-RTOL = 1e-10
 FLOOR = 1.0
 # (variance, assignment, sampling); the robust flavours ignore assignment and sampling.
-FLAVOURS = (
-    ("stratified", "block", "fixed"),
-    ("stratified", "block", "random"),
-    ("stratified", "independent", "fixed"),
-    ("stratified", "independent", "random"),
-    ("robust", "block", "random"),
-    ("robust_scaled", "block", "random"),
-    ("cluster", "block", "fixed"),
-    ("cluster", "block", "random"),
-)
+FLAVOURS = CORE_FLAVOURS + (("cluster", "block", "fixed"), ("cluster", "block", "random"))
 FAST = settings(max_examples=30, deadline=None)
-ESTIMATORS = ("fixed_effects", "weighted", "interacted")
 
 
 @dataclass(frozen=True)
@@ -97,25 +88,6 @@ def fits(cells, probability: dict | None = None) -> list[dict[str, Any]]:
         ).to_dict()
         for v, a, s in FLAVOURS
     ]
-
-
-def assert_close(
-    actual: Any, expected: Any, *, rtol: float = RTOL, floor: float = FLOOR, path: str = ""
-) -> None:
-    """Recursive comparison of to_dict() output: floats to rtol * max(|expected|, floor)."""
-    if isinstance(expected, dict):
-        assert set(actual) == set(expected), path
-        for key in expected:
-            assert_close(actual[key], expected[key], rtol=rtol, floor=floor, path=f"{path}.{key}")
-    elif isinstance(expected, list):
-        assert len(actual) == len(expected), path
-        for i, (a, e) in enumerate(zip(actual, expected, strict=True)):
-            assert_close(a, e, rtol=rtol, floor=floor, path=f"{path}[{i}]")
-    elif isinstance(expected, float):
-        assert isinstance(actual, float), (path, actual, expected)
-        assert abs(actual - expected) <= rtol * max(abs(expected), floor), (path, actual, expected)
-    else:
-        assert actual == expected, (path, actual, expected)
 
 
 def comparable(result: dict[str, Any]) -> dict[str, Any]:
