@@ -8,7 +8,7 @@ those positions into row numbers in its messages.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from numbers import Integral, Real
 from typing import Any
@@ -74,6 +74,36 @@ def _binary(value: Any) -> int | None:
     return None
 
 
+_MISSING = object()
+
+
+def _parse(cells: Sequence[Any], convert: Callable[[Any], Any], values: np.ndarray) -> Parsed:
+    """Fill `values` with `convert` of each cell; None from `convert` marks it invalid.
+
+    Conversions are remembered per distinct cell value, since code and label columns repeat
+    a handful of values over many rows.
+    """
+    missing = np.zeros(len(cells), dtype=bool)
+    invalid: list[int] = []
+    seen: dict[Any, Any] = {}
+    for i, cell in enumerate(cells):
+        try:
+            result = seen[cell]
+        except (KeyError, TypeError):
+            result = _MISSING if is_missing(cell) else convert(cell)
+            try:
+                seen[cell] = result
+            except TypeError:
+                pass
+        if result is _MISSING:
+            missing[i] = True
+        elif result is None:
+            invalid.append(i)
+        else:
+            values[i] = result
+    return Parsed(values, missing, np.asarray(invalid, dtype=np.int64))
+
+
 def parse_binary(cells: Sequence[Any]) -> Parsed:
     """Parse a 0/1 column; accepted codes are 0/1 and true/false (any case), nothing else.
 
@@ -87,19 +117,7 @@ def parse_binary(cells: Sequence[Any]) -> Parsed:
     Parsed
         int8 values.
     """
-    values = np.zeros(len(cells), dtype=np.int8)
-    missing = np.zeros(len(cells), dtype=bool)
-    invalid: list[int] = []
-    for i, cell in enumerate(cells):
-        if is_missing(cell):
-            missing[i] = True
-            continue
-        code = _binary(cell)
-        if code is None:
-            invalid.append(i)
-        else:
-            values[i] = code
-    return Parsed(values, missing, np.asarray(invalid, dtype=np.int64))
+    return _parse(cells, _binary, np.zeros(len(cells), dtype=np.int8))
 
 
 def _number(value: Any) -> float | None:
@@ -136,19 +154,7 @@ def parse_number(cells: Sequence[Any]) -> Parsed:
     Parsed
         float64 values, NaN where missing or invalid.
     """
-    values = np.full(len(cells), np.nan)
-    missing = np.zeros(len(cells), dtype=bool)
-    invalid: list[int] = []
-    for i, cell in enumerate(cells):
-        if is_missing(cell):
-            missing[i] = True
-            continue
-        number = _number(cell)
-        if number is None:
-            invalid.append(i)
-        else:
-            values[i] = number
-    return Parsed(values, missing, np.asarray(invalid, dtype=np.int64))
+    return _parse(cells, _number, np.full(len(cells), np.nan))
 
 
 def _label(value: Any) -> str:
