@@ -14,9 +14,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-import yaml
-
 from .errors import SpecError
+from .yamlmarks import KeyPath, compose_with_lines, dotted, line_of
 
 __all__ = [
     "ESTIMATORS",
@@ -53,8 +52,6 @@ _SECTIONS: dict[str, tuple[str, ...] | None] = {
 }
 _REQUIRED_COLUMNS = ("outcome", "take_up", "offer", "stratum")
 _GLOB_CHARS = set("*?[")
-
-KeyPath = tuple[Any, ...]
 
 
 def suggest(word: str, choices: list[str] | tuple[str, ...]) -> str | None:
@@ -168,11 +165,11 @@ class Spec:
 
     def line_of(self, *keys: Any) -> int | None:
         """Return the spec line of `keys` or of its nearest present parent key."""
-        return _line_of(self.lines, tuple(keys))
+        return line_of(self.lines, tuple(keys))
 
     def error(self, keys: KeyPath, message: str, hint: str | None = None) -> SpecError:
         """Return a `SpecError` located at the spec line of `keys`."""
-        return SpecError(self.path, self.line_of(*keys), _dotted(keys), message, hint)
+        return SpecError(self.path, self.line_of(*keys), dotted(keys), message, hint)
 
     def to_dict(self) -> dict[str, Any]:
         """Return the resolved spec as JSON-ready data (paths as strings)."""
@@ -202,85 +199,6 @@ class Spec:
         }
 
 
-def _dotted(keys: KeyPath) -> str | None:
-    if not keys:
-        return None
-    text = str(keys[0])
-    for k in keys[1:]:
-        text += f"[{k + 1}]" if isinstance(k, int) else f".{k}"
-    return text
-
-
-def _line_of(lines: Mapping[KeyPath, int], keys: KeyPath) -> int | None:
-    while keys:
-        if keys in lines:
-            return lines[keys]
-        keys = keys[:-1]
-    return lines.get((), None)
-
-
-def _compose(text: str, path: Path) -> tuple[Any, dict[KeyPath, int]]:
-    """Parse YAML text into Python data plus the line of every key and list item."""
-    loader = yaml.SafeLoader(text)
-    try:
-        node = loader.get_single_node()
-        if node is None:
-            raise SpecError(path, None, None, "the spec is empty",
-                            "start from `strativ init DATA`, or give at least 'data' and 'columns'")
-        lines: dict[KeyPath, int] = {(): node.start_mark.line + 1}
-        _index(loader, node, (), lines, path, set())
-        data = loader.construct_document(node)
-    except yaml.MarkedYAMLError as exc:
-        mark = exc.problem_mark or exc.context_mark
-        problem = exc.problem or exc.context or "invalid YAML"
-        raise SpecError(path, mark.line + 1 if mark else None, None,
-                        f"not valid YAML: {problem}", _yaml_hint(exc, problem)) from None
-    except yaml.YAMLError as exc:
-        raise SpecError(path, None, None, f"not valid YAML: {exc}") from None
-    finally:
-        loader.dispose()
-    return data, lines
-
-
-def _yaml_hint(exc: yaml.MarkedYAMLError, problem: str) -> str:
-    """Return how to fix the YAML error `exc`."""
-    if "\\t" in problem or "\t" in problem:
-        return "indent with spaces; YAML does not allow tabs"
-    if isinstance(exc, yaml.constructor.ConstructorError):
-        return "a spec holds plain values: remove the '!' tag"
-    if "another document" in problem:
-        return "a spec is a single YAML document: remove the '---' or '...' line"
-    return "check the indentation and the ':' after each key"
-
-
-def _index(loader: yaml.SafeLoader, node: yaml.Node, keys: KeyPath,
-           lines: dict[KeyPath, int], path: Path, seen_nodes: set[int]) -> None:
-    # An alias repeats a node; walking it again would take exponential time on nested
-    # aliases ("billion laughs"), and its lines are those of the anchor anyway.
-    if id(node) in seen_nodes:
-        return
-    seen_nodes.add(id(node))
-    if isinstance(node, yaml.MappingNode):
-        loader.flatten_mapping(node)
-        seen: dict[Any, int] = {}
-        for key_node, value_node in node.value:
-            line = key_node.start_mark.line + 1
-            if not isinstance(key_node, yaml.ScalarNode):
-                raise SpecError(path, line, _dotted(keys), "a key must be a plain name")
-            key = loader.construct_object(key_node)
-            if key in seen:
-                raise SpecError(path, line, _dotted(keys + (key,)),
-                                f"key '{key}' appears twice (lines {seen[key]} and {line})",
-                                "keep one of them")
-            seen[key] = line
-            lines[keys + (key,)] = line
-            _index(loader, value_node, keys + (key,), lines, path, seen_nodes)
-    elif isinstance(node, yaml.SequenceNode):
-        for i, item in enumerate(node.value):
-            lines[keys + (i,)] = item.start_mark.line + 1
-            _index(loader, item, keys + (i,), lines, path, seen_nodes)
-
-
 class _Checker:
     """Validation helpers that know the spec path and its line table."""
 
@@ -289,10 +207,10 @@ class _Checker:
         self.lines = lines
 
     def error(self, keys: KeyPath, message: str, hint: str | None = None) -> SpecError:
-        return SpecError(self.path, _line_of(self.lines, keys), _dotted(keys), message, hint)
+        return SpecError(self.path, line_of(self.lines, keys), dotted(keys), message, hint)
 
     def mapping(self, value: Any, keys: KeyPath, allowed: tuple[str, ...]) -> dict[str, Any]:
-        where = f"'{_dotted(keys)}'" if keys else "the spec"
+        where = f"'{dotted(keys)}'" if keys else "the spec"
         if value is None:
             return {}
         if not isinstance(value, dict):
@@ -313,22 +231,22 @@ class _Checker:
 
     def name(self, value: Any, keys: KeyPath, what: str) -> str:
         if isinstance(value, bool) or not isinstance(value, (str, int)):
-            raise self.error(keys, f"'{_dotted(keys)}' must be {what}, found {_kind(value)}")
+            raise self.error(keys, f"'{dotted(keys)}' must be {what}, found {_kind(value)}")
         text = str(value).strip()
         if not text:
-            raise self.error(keys, f"'{_dotted(keys)}' is empty", f"give {what}")
+            raise self.error(keys, f"'{dotted(keys)}' is empty", f"give {what}")
         return text
 
     def names(self, value: Any, keys: KeyPath, what: str) -> tuple[str, ...]:
         if isinstance(value, list):
             if not value:
-                raise self.error(keys, f"'{_dotted(keys)}' is an empty list", f"give {what}")
+                raise self.error(keys, f"'{dotted(keys)}' is an empty list", f"give {what}")
             out = tuple(self.name(v, keys + (i,), what) for i, v in enumerate(value))
         else:
             out = (self.name(value, keys, what),)
         for i, item in enumerate(out):
             if item in out[:i]:
-                raise self.error(keys + (i,), f"'{item}' is listed twice in '{_dotted(keys)}'")
+                raise self.error(keys + (i,), f"'{item}' is listed twice in '{dotted(keys)}'")
         return out
 
     def choice(self, value: Any, keys: KeyPath, choices: tuple[str, ...], default: str) -> str:
@@ -336,7 +254,7 @@ class _Checker:
             return default
         if not isinstance(value, str) or value not in choices:
             hint = suggest(str(value), choices) if isinstance(value, str) else None
-            raise self.error(keys, f"'{_dotted(keys)}' is {value!r}; expected one of "
+            raise self.error(keys, f"'{dotted(keys)}' is {value!r}; expected one of "
                              + ", ".join(choices), hint)
         return value
 
@@ -346,17 +264,17 @@ class _Checker:
             return default
         items = value if isinstance(value, list) else [value]
         if not items:
-            raise self.error(keys, f"'{_dotted(keys)}' is an empty list",
+            raise self.error(keys, f"'{dotted(keys)}' is an empty list",
                              "list at least one of " + ", ".join(choices))
         out: list[str] = []
         for i, item in enumerate(items):
             where = keys + (i,) if isinstance(value, list) else keys
             if not isinstance(item, str) or item not in choices:
                 hint = suggest(str(item), choices) if isinstance(item, str) else None
-                raise self.error(where, f"'{_dotted(keys)}' has {item!r}; expected one of "
+                raise self.error(where, f"'{dotted(keys)}' has {item!r}; expected one of "
                                  + ", ".join(choices), hint)
             if item in out:
-                raise self.error(where, f"'{item}' is listed twice in '{_dotted(keys)}'")
+                raise self.error(where, f"'{item}' is listed twice in '{dotted(keys)}'")
             out.append(item)
         return tuple(out)
 
@@ -405,7 +323,7 @@ def load_spec(path: Path | str) -> Spec:
     except OSError as exc:
         raise SpecError(path, None, None, f"cannot read the spec file ({exc.strerror})",
                         "check the path and its permissions") from None
-    raw, lines = _compose(text, path)
+    raw, lines = compose_with_lines(text, path)
     check = _Checker(path, lines)
     top = check.mapping(raw, (), tuple(_SECTIONS))
     for key in ("data", "columns"):
@@ -578,7 +496,7 @@ def _offer_probability(check: _Checker, value: Any, columns: Columns) -> OfferPr
             raise check.error(where, f"stratum '{label}' is given twice in "
                               "'design.offer_probability'", "keep one of them")
         pairs.append((str(label), float(prob)))
-        lines.append(_line_of(check.lines, where))
+        lines.append(line_of(check.lines, where))
     return OfferProbability("mapping", by_stratum=tuple(pairs), lines=tuple(lines))
 
 

@@ -20,7 +20,7 @@ from cli_support import (
     write_csv,
 )
 
-import strativ.cli.spec as spec_module
+import strativ.cli.yamlmarks as yaml_marks
 from strativ.cli.errors import SpecError
 from strativ.cli.results import load_schema
 from strativ.cli.spec import load_spec
@@ -48,13 +48,13 @@ def _comparison(rows: list[dict]):
 
 def test_nested_yaml_aliases_are_indexed_once(study: Study, monkeypatch) -> None:
     calls = []
-    index = spec_module._index
+    index = yaml_marks._index
 
     def counting(*args, **kwargs):
         calls.append(1)
         return index(*args, **kwargs)
 
-    monkeypatch.setattr(spec_module, "_index", counting)
+    monkeypatch.setattr(yaml_marks, "_index", counting)
     ten = ", ".join(["1"] * 10)
     study.write_spec(f"a: &a [{ten}]\n" + "".join(
         f"{k}: &{k} [{', '.join([f'*{prev}'] * 10)}]\n"

@@ -1,0 +1,101 @@
+"""YAML with line marks: parse a spec and remember the line of every key and list item.
+
+Spec errors name the line they come from; this module keeps that bookkeeping apart from the
+validation in `spec`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+import yaml
+
+from .errors import SpecError
+
+__all__ = ["KeyPath", "compose_with_lines", "dotted", "line_of"]
+
+KeyPath = tuple[Any, ...]
+"""Keys and list positions from the document root to a value."""
+
+
+def dotted(keys: KeyPath) -> str | None:
+    """The key path as written in messages: ``design.offer_probability`` or ``data[2]``."""
+    if not keys:
+        return None
+    text = str(keys[0])
+    for k in keys[1:]:
+        text += f"[{k + 1}]" if isinstance(k, int) else f".{k}"
+    return text
+
+
+def line_of(lines: Mapping[KeyPath, int], keys: KeyPath) -> int | None:
+    """Line of `keys`, or of its nearest enclosing key that has one."""
+    while keys:
+        if keys in lines:
+            return lines[keys]
+        keys = keys[:-1]
+    return lines.get((), None)
+
+
+def compose_with_lines(text: str, path: Path) -> tuple[Any, dict[KeyPath, int]]:
+    """Parse YAML text into Python data plus the line of every key and list item."""
+    loader = yaml.SafeLoader(text)
+    try:
+        node = loader.get_single_node()
+        if node is None:
+            raise SpecError(path, None, None, "the spec is empty",
+                            "start from `strativ init DATA`, or give at least 'data' and 'columns'")
+        lines: dict[KeyPath, int] = {(): node.start_mark.line + 1}
+        _index(loader, node, (), lines, path, set())
+        data = loader.construct_document(node)
+    except yaml.MarkedYAMLError as exc:
+        mark = exc.problem_mark or exc.context_mark
+        problem = exc.problem or exc.context or "invalid YAML"
+        raise SpecError(path, mark.line + 1 if mark else None, None,
+                        f"not valid YAML: {problem}", _yaml_hint(exc, problem)) from None
+    except yaml.YAMLError as exc:
+        raise SpecError(path, None, None, f"not valid YAML: {exc}") from None
+    finally:
+        loader.dispose()
+    return data, lines
+
+
+def _yaml_hint(exc: yaml.MarkedYAMLError, problem: str) -> str:
+    """Return how to fix the YAML error `exc`."""
+    if "\\t" in problem or "\t" in problem:
+        return "indent with spaces; YAML does not allow tabs"
+    if isinstance(exc, yaml.constructor.ConstructorError):
+        return "a spec holds plain values: remove the '!' tag"
+    if "another document" in problem:
+        return "a spec is a single YAML document: remove the '---' or '...' line"
+    return "check the indentation and the ':' after each key"
+
+
+def _index(loader: yaml.SafeLoader, node: yaml.Node, keys: KeyPath,
+           lines: dict[KeyPath, int], path: Path, seen_nodes: set[int]) -> None:
+    # An alias repeats a node; walking it again would take exponential time on nested
+    # aliases ("billion laughs"), and its lines are those of the anchor anyway.
+    if id(node) in seen_nodes:
+        return
+    seen_nodes.add(id(node))
+    if isinstance(node, yaml.MappingNode):
+        loader.flatten_mapping(node)
+        seen: dict[Any, int] = {}
+        for key_node, value_node in node.value:
+            line = key_node.start_mark.line + 1
+            if not isinstance(key_node, yaml.ScalarNode):
+                raise SpecError(path, line, dotted(keys), "a key must be a plain name")
+            key = loader.construct_object(key_node)
+            if key in seen:
+                raise SpecError(path, line, dotted(keys + (key,)),
+                                f"key '{key}' appears twice (lines {seen[key]} and {line})",
+                                "keep one of them")
+            seen[key] = line
+            lines[keys + (key,)] = line
+            _index(loader, value_node, keys + (key,), lines, path, seen_nodes)
+    elif isinstance(node, yaml.SequenceNode):
+        for i, item in enumerate(node.value):
+            lines[keys + (i,)] = item.start_mark.line + 1
+            _index(loader, item, keys + (i,), lines, path, seen_nodes)
