@@ -33,7 +33,8 @@ class Design:
     """Centred within-cell sums of squares and products of (y, d), (K, 2, 2, 2)."""
     cov: np.ndarray
     """Within-cell covariance of (y, d) with divisor n - 1, (K, 2, 2, 2); a one-unit cell gets
-    the pooled covariance of the other cells of its arm."""
+    the pooled covariance of the other cells of its arm (of all cells if its arm has no
+    cell of two or more)."""
     cluster_q: np.ndarray | None
     """Cluster-level sums of squares of (y, d) deviations (K, 2, 2, 2), or None."""
     n_clusters: int
