@@ -1,7 +1,7 @@
 """Read the data files a spec names, check every column for its role, and stack the rows.
 
-One file at a time: read it (CSV with the standard library reader so that line numbers stay
-exact; Parquet with pyarrow), check that every named column exists (listing near matches),
+One file at a time: read it (`tables.read_table`: CSV with exact line numbers, Parquet with
+pyarrow), check that every named column exists (listing near matches),
 parse each column for its role, and report bad values with their rows. Then drop
 incomplete rows when the spec allows it, and concatenate. Nothing here computes a statistic.
 
@@ -11,11 +11,8 @@ CSV files the line in the file is given too.
 
 from __future__ import annotations
 
-import csv
 import hashlib
-import io
 import re
-from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -26,14 +23,14 @@ from strativ.estimators import OUTCOME_LIMIT
 
 from .errors import DataError
 from .spec import Spec, suggest
+from .tables import OTHER_DELIMITERS, Table, read_table
 from .values import Parsed, parse_binary, parse_label, parse_number
 
-__all__ = ["InputFile", "Dataset", "load_data", "file_fingerprint", "read_table"]
+__all__ = ["InputFile", "Dataset", "load_data", "file_fingerprint"]
 
 STRATUM_JOIN = " / "
 """Separator between the parts of a stratum label built from several columns."""
 _SHOWN = 5
-_OTHER_DELIMITERS = {";": "semicolons", "\t": "tabs", "|": "vertical bars"}
 _DECIMAL_COMMA = re.compile(r"[-+]?\d*,\d+")
 
 
@@ -126,133 +123,6 @@ def file_fingerprint(path: Path, rows: int) -> InputFile:
     return InputFile(path, path.stat().st_size, digest.hexdigest(), rows)
 
 
-@dataclass(frozen=True, slots=True, eq=False)
-class _Table:
-    header: list[str]
-    columns: dict[str, list[Any]]
-    rows: np.ndarray
-    lines: np.ndarray
-    header_line: str
-
-
-def read_table(path: Path, wanted: Sequence[str] | None = None) -> _Table:
-    """Read a CSV or Parquet file into columns of raw cells.
-
-    Parameters
-    ----------
-    path : Path
-        The file; its suffix picks the reader.
-    wanted : sequence of str, optional
-        Columns to keep (default all). Absent names are skipped; the caller checks them.
-
-    Returns
-    -------
-    _Table
-        Header, raw cells per kept column, data row and line numbers.
-
-    Raises
-    ------
-    DataError
-        When the file is empty, unreadable, not UTF-8, has ragged rows, or no data rows.
-    """
-    if path.suffix.lower() == ".csv":
-        return _read_csv(path, wanted)
-    return _read_parquet(path, wanted)
-
-
-def _read_csv(path: Path, wanted: Sequence[str] | None) -> _Table:
-    try:
-        raw = path.read_bytes()
-    except OSError as exc:
-        raise DataError(path, None, (), f"cannot read the file ({exc.strerror})") from None
-    if not raw.strip():
-        raise DataError(path, None, (), "the file is empty",
-                        "export the data again; a CSV needs a header line and data rows")
-    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
-        raise DataError(path, None, (), "the file is UTF-16 text; strativ reads UTF-8",
-                        "save it as CSV UTF-8")
-    if raw.startswith(b"PAR1"):
-        raise DataError(path, None, (), "the file is Parquet data with a .csv name",
-                        "rename it to end in .parquet")
-    if b"\x00" in raw[:65536]:
-        raise DataError(path, None, (), "the file is not text (it holds binary data)",
-                        "if it is a spreadsheet, save it as CSV (comma-separated) first")
-    try:
-        text = raw.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        line = raw[:exc.start].count(b"\n") + 1
-        raise DataError(path, None, (), f"the file is not UTF-8 text: byte "
-                        f"0x{raw[exc.start]:02x} on line {line} (Latin-1 or Windows-1252?)",
-                        "save it as CSV UTF-8") from None
-    reader = csv.reader(io.StringIO(text, newline=""))
-    header: list[str] | None = None
-    header_line = ""
-    records: list[list[str]] = []
-    lines: list[int] = []
-    last = 0
-    try:
-        for record in reader:
-            start, last = last + 1, reader.line_num
-            if not record or all(not field.strip() for field in record):
-                continue
-            if header is None:
-                header = [field.strip() for field in record]
-                header_line = ",".join(record)
-                _check_delimiter(path, header, header_line)
-                continue
-            if len(record) != len(header):
-                raise DataError(path, None, (len(records) + 1,),
-                                f"line {start} has {len(record)} fields but the header has "
-                                f"{len(header)}", "check for a stray comma or an unclosed quote "
-                                "on that line; values with commas must be quoted")
-            records.append(record)
-            lines.append(start)
-    except csv.Error as exc:
-        raise DataError(path, None, (), f"cannot parse the file near line {reader.line_num} "
-                        f"({exc})", "check the quoting on that line") from None
-    assert header is not None
-    if not records:
-        raise DataError(path, None, (), "the file has a header but no data rows",
-                        "export the data again with its rows, or remove the file from 'data'")
-    keep = [(name, j) for j, name in enumerate(header) if wanted is None or name in wanted]
-    columns = {name: [rec[j] for rec in records] for name, j in keep}
-    return _Table(header, columns, np.arange(1, len(records) + 1), np.asarray(lines),
-                  header_line)
-
-
-def _check_delimiter(path: Path, header: list[str], header_line: str) -> None:
-    if len(header) > 1:
-        return
-    for delim, plural in _OTHER_DELIMITERS.items():
-        if delim in header_line:
-            raise DataError(path, None, (), f"the fields seem to be separated by {plural}, not "
-                            "commas (the header reads as one column)",
-                            "save the file as comma-separated CSV")
-    raise DataError(path, None, (), "the header has a single column; strativ needs at least "
-                    "offer, take-up, stratum and outcome columns separated by commas",
-                    "save the file as comma-separated CSV")
-
-
-def _read_parquet(path: Path, wanted: Sequence[str] | None) -> _Table:
-    import pyarrow.parquet as pq
-
-    if path.stat().st_size == 0:
-        raise DataError(path, None, (), "the file is empty")
-    try:
-        header = list(pq.read_schema(path).names)
-        names = [n for n in header if wanted is None or n in wanted]
-        table = pq.read_table(path, columns=names)
-    except Exception as exc:  # pyarrow raises several types for a damaged file
-        raise DataError(path, None, (), f"cannot be read as Parquet ({exc})",
-                        "check that the file is complete and really Parquet") from None
-    if table.num_rows == 0:
-        raise DataError(path, None, (), "the file has no data rows",
-                        "export the data again with its rows, or remove the file from 'data'")
-    columns = {name: table.column(name).to_pylist() for name in names}
-    return _Table(header, columns, np.arange(1, table.num_rows + 1),
-                  np.zeros(table.num_rows, dtype=np.int64), "")
-
-
 def _spec_roles(spec: Spec) -> dict[str, tuple[str, int | None]]:
     """Column name -> (role phrase, spec line) for every column the spec names."""
     roles: dict[str, tuple[str, int | None]] = {}
@@ -273,7 +143,7 @@ def _spec_roles(spec: Spec) -> dict[str, tuple[str, int | None]]:
     return roles
 
 
-def _check_columns(path: Path, table: _Table, spec: Spec,
+def _check_columns(path: Path, table: Table, spec: Spec,
                    roles: dict[str, tuple[str, int | None]]) -> None:
     present = [h for h in table.header if h]
     for name, (role, line) in roles.items():
@@ -284,7 +154,7 @@ def _check_columns(path: Path, table: _Table, spec: Spec,
         if count == 1:
             continue
         at = f" (named as {role} in {spec.path.name}, line {line})" if line else ""
-        for delim, plural in _OTHER_DELIMITERS.items():
+        for delim, plural in OTHER_DELIMITERS.items():
             if delim in table.header_line and name in [
                     f.strip() for f in table.header_line.split(delim)]:
                 raise DataError(path, None, (), f"the fields seem to be separated by {plural}, "
@@ -298,7 +168,7 @@ def _check_columns(path: Path, table: _Table, spec: Spec,
         raise DataError(path, name, (), f"no column '{name}'{at}", hint)
 
 
-def _bad_values(path: Path, column: str, table: _Table, parsed: Parsed, cells: list[Any],
+def _bad_values(path: Path, column: str, table: Table, parsed: Parsed, cells: list[Any],
                 what: str, hint: str) -> DataError:
     shown = [int(i) for i in parsed.invalid[:_SHOWN]]
     found = ", ".join(f"{cells[i]!r} in {_row_text(int(table.rows[i]), int(table.lines[i]))}"
@@ -308,7 +178,7 @@ def _bad_values(path: Path, column: str, table: _Table, parsed: Parsed, cells: l
                      f"{what}; found {found}{more}", hint)
 
 
-def _parse_file(path: Path, table: _Table, spec: Spec) -> dict[str, Parsed]:
+def _parse_file(path: Path, table: Table, spec: Spec) -> dict[str, Parsed]:
     cols = spec.columns
     out: dict[str, Parsed] = {}
     for name in (cols.offer, cols.take_up):
@@ -474,9 +344,23 @@ def _check_joined_labels(spec: Spec, parts: list[np.ndarray], labels: np.ndarray
                             "stratum values so that each combination keeps its own label")
 
 
+_NOT_INTEGER = re.compile(r"^(?!(?:0|-?[1-9][0-9]*)$)", re.MULTILINE)
+
+
 def _integer_labels(labels: np.ndarray) -> np.ndarray:
     """Turn text labels into ints when every label is a plain integer (so 2 sorts before 10)."""
     out = np.empty(labels.size, dtype=object)
+    texts = labels.tolist()
+    if texts and set(map(type, texts)) == {str}:
+        joined = "\n".join(texts)
+        if joined.count("\n") == len(texts) - 1:
+            if _NOT_INTEGER.search(joined):
+                return labels.astype(object)
+            try:
+                out[:] = list(map(int, texts))
+            except ValueError:
+                return labels.astype(object)
+            return out
     for i, text in enumerate(labels):
         try:
             number = int(text)

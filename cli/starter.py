@@ -16,7 +16,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .errors import UsageError
-from .loading import read_table
+from .tables import read_table
 from .values import parse_binary, parse_number
 
 __all__ = ["ColumnProfile", "profile_columns", "starter_spec", "write_new_file"]
@@ -78,7 +78,7 @@ def profile_columns(path: Path) -> list[ColumnProfile]:
     Raises
     ------
     DataError
-        When the file cannot be read (see `strativ.cli.loading.read_table`).
+        When the file cannot be read (see `strativ.cli.tables.read_table`).
     """
     table = read_table(path)
     out = []

@@ -261,3 +261,11 @@ def test_starter_spec_stays_valid_yaml_with_a_newline_in_a_column_name(tmp_path:
     assert yaml.safe_load(target.read_text()) == {
         "title": "d", "data": "d.csv", "columns": {"stratum": "site: x"}}
     assert '#   "take\\nup"' in target.read_text()
+
+
+def test_a_csv_of_blank_lines_only_is_a_data_error(study: Study, invoke) -> None:
+    study.data.write_text(",,\n\n , ,\n", encoding="utf-8")
+    result = invoke("run", study.spec, "--out", study.out)
+    # common practice, no source: a table without a header names no column
+    assert_clean_failure(result, DATA_ERROR, "data.csv", "only blank lines, no header")
+    assert not study.out.exists()
