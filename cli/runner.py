@@ -22,6 +22,7 @@ from strativ.estimators import (
     EstimatorError,
     InputError,
     build_cells,
+    excluded_strata,
     fit_all,
 )
 
@@ -199,19 +200,15 @@ def summarize_design(spec: Spec, dataset: Dataset) -> DesignSummary:
     zeros = np.zeros(dataset.n_rows)
     cells = _cells(dataset, zeros, np.ones(dataset.n_rows, dtype=bool), cluster=False,
                    spec=spec)
+    reasons = {e.label: e.reason for e in excluded_strata(cells)}
     strata = []
     for k, label in enumerate(cells.labels):
         n0, n1 = (int(v) for v in cells.n[k])
-        reason = None
-        if n1 == 0:
-            reason = "no unit was offered (offer share 0)"
-        elif n0 == 0:
-            reason = "every unit was offered (offer share 1)"
         strata.append(StratumDesign(
             label, n0 + n1, n1,
             float(cells.mean_take_up[k, 1]) if n1 else None,
             float(cells.mean_take_up[k, 0]) if n0 else None,
-            reason))
+            reasons.get(label)))
     if all(s.excluded_reason for s in strata):
         raise DataError(None, " + ".join(spec.columns.stratum), (),
                         "no stratum has both offered and not-offered rows, so no effect can "

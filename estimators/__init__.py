@@ -5,6 +5,7 @@ Pure functions on arrays and cell tables; no I/O, no printing. Build a cell tabl
 """
 
 from .cells import OUTCOME_LIMIT, CellTable, ClusterSums, build_cells, cells_from_frame
+from .design import excluded_strata
 from .errors import DegenerateDesignError, EstimatorError, InputError
 from .fit import ESTIMATORS, fit, fit_all
 from .results import (
@@ -40,6 +41,7 @@ __all__ = [
     "StratumTable",
     "build_cells",
     "cells_from_frame",
+    "excluded_strata",
     "fit",
     "fit_all",
 ]

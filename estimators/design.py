@@ -14,7 +14,7 @@ from .cells import CellTable
 from .errors import DegenerateDesignError
 from .results import ExcludedStratum
 
-__all__ = ["Design", "analysis_design"]
+__all__ = ["Design", "analysis_design", "excluded_strata"]
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -100,6 +100,34 @@ def _unbiased_cov(ss: np.ndarray, n: np.ndarray) -> tuple[np.ndarray, int]:
     return cov, int(single.sum())
 
 
+def excluded_strata(cells: CellTable) -> tuple[ExcludedStratum, ...]:
+    """The strata that every estimator leaves out, with the reason.
+
+    Parameters
+    ----------
+    cells : CellTable
+        Output of `build_cells` or `cells_from_frame`.
+
+    Returns
+    -------
+    tuple of ExcludedStratum
+        Strata with no units, no offered unit, or every unit offered, in label order
+        (METHODS.md §2: an offer share of 0 or 1 carries no information about an effect).
+    """
+    out = []
+    for k, (n0, n1) in enumerate(cells.n.tolist()):
+        if n0 > 0 and n1 > 0:
+            continue
+        if n0 + n1 == 0:
+            reason = "no units"
+        elif n1 == 0:
+            reason = "no unit was offered (offer share 0)"
+        else:
+            reason = "every unit was offered (offer share 1)"
+        out.append(ExcludedStratum(label=cells.labels[k], n=int(n0 + n1), reason=reason))
+    return tuple(out)
+
+
 def analysis_design(cells: CellTable) -> Design:
     """Select the strata that have both arms and derive their per-arm moments.
 
@@ -125,16 +153,7 @@ def analysis_design(cells: CellTable) -> Design:
     """
     n = cells.n.astype(float)
     keep = (n[:, 0] > 0) & (n[:, 1] > 0)
-    exclusions = []
-    for k in np.flatnonzero(~keep):
-        total = int(n[k].sum())
-        if total == 0:
-            reason = "no units"
-        elif n[k, 1] == 0:
-            reason = "no unit was offered (offer share 0)"
-        else:
-            reason = "every unit was offered (offer share 1)"
-        exclusions.append(ExcludedStratum(label=cells.labels[k], n=total, reason=reason))
+    exclusions = excluded_strata(cells)
     if not keep.any():
         raise DegenerateDesignError(
             "no stratum has both offered and not-offered units, so no effect can be estimated; "
