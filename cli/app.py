@@ -25,12 +25,20 @@ import typer
 from rich.console import Console
 from rich.text import Text
 
+from strativ.estimators.options import DEFAULTS, DESCRIPTIONS
+
 from . import __version__
 from .errors import EXIT_INTERNAL, CliError, UsageError
 from .loading import load_data
 from .render import make_console, render_check, render_error, render_run, render_warnings
 from .results import check_output_paths, write_outputs
-from .runner import data_warnings, design_probabilities, run_spec, summarize_design
+from .runner import (
+    check_with_core,
+    data_warnings,
+    design_probabilities,
+    run_spec,
+    summarize_design,
+)
 from .spec import DATA_SUFFIXES, load_spec
 from .starter import starter_spec, write_new_file
 
@@ -95,12 +103,23 @@ def _root(
     """
 
 
+def _options_help() -> str:
+    """The spec's option values with their defaults, from the one option vocabulary."""
+    lines = []
+    for option, values in DESCRIPTIONS.items():
+        default = DEFAULTS[option]
+        shown = ", ".join(default) if isinstance(default, tuple) else default
+        lines.append(f"{option} (default: {shown}): " + "; ".join(
+            f"{value} = {text}" for value, text in values.items()) + ".")
+    return "\n\n".join(lines)
+
+
 SpecArg = Annotated[Path, typer.Argument(exists=True, dir_okay=False, readable=True,
                                          show_default=False, metavar="SPEC",
                                          help="The YAML spec file.")]
 
 
-@app.command()
+@app.command(epilog="Spec options:\n\n" + _options_help())
 def run(
     spec: SpecArg,
     out: Annotated[Path | None, typer.Option(
@@ -134,9 +153,10 @@ def run(
 
 @app.command()
 def check(spec: SpecArg) -> None:
-    """Validate SPEC and its data and print the design summary, without fitting.
+    """Validate SPEC and its data and print the design summary, without printing estimates.
 
-    Exits 0 when `strativ run` can fit the spec.
+    The estimators' own checks run too, so it exits 0 exactly when `strativ run` can fit the
+    spec.
 
     Example:  strativ check specs/demo.yaml
     """
@@ -146,8 +166,9 @@ def check(spec: SpecArg) -> None:
         dataset = load_data(loaded)
         probabilities = design_probabilities(loaded, dataset)
         summary = summarize_design(loaded, dataset)
+        design_notes = check_with_core(loaded, dataset, probabilities)
         render_check(make_console(), loaded, dataset, summary, probabilities)
-        render_warnings(err, data_warnings(loaded, dataset))
+        render_warnings(err, data_warnings(loaded, dataset) + design_notes)
 
 
 @app.command()

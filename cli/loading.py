@@ -212,15 +212,6 @@ def _parse_file(path: Path, table: Table, spec: Spec) -> dict[str, Parsed]:
                               table.columns[name], f"outcome values beyond +/-{OUTCOME_LIMIT:g} "
                               "overflow sums of squares", "rescale the outcome (for example "
                               "to thousands or millions)")
-    if spec.offer_probability.column is not None:
-        name = spec.offer_probability.column
-        parsed = out[name]
-        bad = np.flatnonzero(~parsed.missing & ~((parsed.values > 0) & (parsed.values < 1)))
-        if bad.size:
-            raise _bad_values(path, name, table, Parsed(parsed.values, parsed.missing, bad),
-                              table.columns[name], "design offer probabilities must lie "
-                              "strictly between 0 and 1", "give each unit its stratum's "
-                              "probability of being offered")
     for name in list(cols.stratum) + ([cols.cluster] if cols.cluster else []):
         out[name] = parse_label(table.columns[name])
     return out

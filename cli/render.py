@@ -19,15 +19,20 @@ from rich.padding import Padding
 from rich.table import Table
 from rich.text import Text
 
+from strativ.estimators.options import USES_ASSIGNMENT, USES_SAMPLING, WEAK_FIRST_STAGE_F
+
+from .cautions import variance_used
 from .errors import CliError
 from .loading import Dataset
 from .reading import (
     ASSUMPTIONS,
     ESTIMATOR_NAMES,
     REVIEW,
+    format_f,
     format_interval,
     format_number,
     format_set,
+    negative_shares,
     pulling_strata,
     reading,
 )
@@ -154,23 +159,32 @@ def _header(console: Console, spec: Spec, dataset: Dataset) -> None:
     probs = {"estimated": "estimated from the data",
              "column": f"design, column '{source.column}'",
              "mapping": "design, given in the spec"}[source.source]
+    used = variance_used(spec)
+    variance = f"variance {used}" if used == spec.variance else \
+        f"variance {spec.variance} (as {used})"
+    clusters = () if spec.columns.cluster is None else \
+        (" by cluster column '", _t(spec.columns.cluster), "'")
+    design = "".join([f", assignment {spec.assignment}" if used in USES_ASSIGNMENT else "",
+                      f", sampling {spec.sampling}" if used in USES_SAMPLING else ""])
     console.print(Text.assemble(
-        "inference ", f"variance {spec.variance}, {spec.level:.0%} level, assignment "
-        f"{spec.assignment}, sampling {spec.sampling}; offer probabilities ", _t(probs)))
+        "inference ", variance, *clusters, f", {spec.level:.0%} level{design}; offer "
+        "probabilities ", _t(probs)))
 
 
 def _comparison_table(console: Console, result: OutcomeResult) -> None:
     estimates = result.comparison.estimates
     level = estimates[0].level
-    sets = (e.confidence_set for e in estimates)
     key = _col("estimator", (ESTIMATOR_NAMES[e.estimator] for e in estimates))
     _print_table(console, key, [
         [_col("estimate", (format_number(e.estimate) for e in estimates)),
          _col("std. error", (format_number(e.std_error) for e in estimates)),
          _col(f"{level:.0%} interval", (format_interval(e.interval) for e in estimates))],
-        [_col("weak-IV robust set", (format_set(c.shape, c.lower, c.upper) for c in sets)),
-         _col("first-stage F", (format_number(e.first_stage_f, digits=3) for e in estimates))],
+        [_col("weak-IV robust set", (format_set(e.confidence_set) for e in estimates)),
+         _col(f"first-stage F\n{estimates[0].variance}", (format_f(e) for e in estimates))],
     ])
+    if any(e.weak_first_stage for e in estimates):
+        console.print(_indented(f"weak: first-stage F below {WEAK_FIRST_STAGE_F:g}; the normal "
+                                "interval is not to be trusted, read the weak-IV robust set"))
 
 
 def _strata_table(console: Console, result: OutcomeResult) -> str | None:
@@ -223,11 +237,16 @@ def _outcome(console: Console, result: OutcomeResult) -> None:
         console.print(_indented(ESTIMATOR_NAMES[est.estimator], ": ", _t(est.estimand)))
         if est.undefined_reason:
             console.print(_indented("undefined: ", _t(est.undefined_reason), indent=4))
+        elif est.std_error is None:
+            console.print(_indented("no standard error: ",
+                                    _t(est.std_error_reason or "undefined"), indent=4))
     console.print()
     console.print("per stratum:")
     caption = _strata_table(console, result)
     if caption:
         console.print(_t(caption))
+    for line in negative_shares(comp.strata.rows):
+        console.print(_indented(_t(line)))
     _excluded(console, result)
     console.print()
     console.print("reading:")

@@ -34,7 +34,7 @@ __all__ = [
     "load_schema",
 ]
 
-SCHEMA_VERSION = "1.0"
+SCHEMA_VERSION = "2.0"
 """Version of the results.json layout; bumped when a field changes meaning or is removed."""
 FILE_NAMES = {"json": "results.json", "csv": "strata.csv"}
 """File written for each output format."""
@@ -146,8 +146,11 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
             "gap": comp["gap"],
             "size_weighted": comp["size_weighted"],
             "single_unit_cells": comp["strata"]["single_unit_cells"],
+            "single_cluster_cells": comp["single_cluster_cells"],
+            "variance_rule": comp["variance_rule"],
             "constant_effect": comp["constant_effect"],
             "negative_first_stage": comp["negative_first_stage"],
+            "offer_counts": comp["offer_counts"],
             "notes": comp["notes"],
         })
     spec = run.spec.to_dict()

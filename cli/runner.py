@@ -18,14 +18,14 @@ import numpy as np
 from strativ.estimators import (
     CellTable,
     Comparison,
-    DegenerateDesignError,
     EstimatorError,
-    InputError,
     build_cells,
     excluded_strata,
     fit_all,
 )
 
+from .cautions import data_warnings, fit_warnings, offer_count_warnings, variance_used
+from .core_errors import located_error
 from .errors import DataError
 from .loading import Dataset
 from .spec import Spec, suggest
@@ -36,14 +36,12 @@ __all__ = [
     "Run",
     "StratumDesign",
     "DesignSummary",
+    "check_with_core",
     "data_warnings",
     "design_probabilities",
     "summarize_design",
     "run_spec",
 ]
-
-WEAK_FIRST_STAGE_F = 10.0
-"""Rule-of-thumb threshold below which a first stage is called weak (Staiger & Stock 1997)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -151,27 +149,15 @@ def _floating_point_guard(name: str, values: np.ndarray) -> Iterator[None]:
                             "values stay well below 1e+50") from None
 
 
-def _cells(dataset: Dataset, outcome: np.ndarray, keep: np.ndarray, *,
-           cluster: bool, spec: Spec) -> CellTable:
+def _cells(dataset: Dataset, outcome: np.ndarray, keep: np.ndarray, *, spec: Spec) -> CellTable:
+    """The core's cell table of the kept rows, with the cluster column whenever the spec
+    names one (every variance flavour then reads the clusters)."""
     try:
         return build_cells(outcome[keep], dataset.take_up[keep], dataset.offer[keep],
                            dataset.stratum[keep],
-                           cluster=dataset.cluster[keep] if cluster else None)
+                           cluster=None if dataset.cluster is None else dataset.cluster[keep])
     except EstimatorError as exc:
-        raise _data_error(exc, spec) from None
-
-
-def _data_error(exc: EstimatorError, spec: Spec) -> DataError:
-    cols = spec.columns
-    column = None
-    if isinstance(exc, InputError):
-        column = {"take_up": cols.take_up, "offer": cols.offer, "cluster": cols.cluster,
-                  "stratum": " + ".join(cols.stratum)}.get(exc.argument)
-        return DataError(None, column, (), exc.message)
-    if isinstance(exc, DegenerateDesignError):
-        return DataError(None, " + ".join(cols.stratum), (), exc.message,
-                         "each stratum needs both offered and not-offered rows")
-    return DataError(None, None, (), str(exc))
+        raise located_error(exc, spec, dataset, rows=np.flatnonzero(keep)) from None
 
 
 def summarize_design(spec: Spec, dataset: Dataset) -> DesignSummary:
@@ -192,14 +178,11 @@ def summarize_design(spec: Spec, dataset: Dataset) -> DesignSummary:
     Raises
     ------
     DataError
-        When no stratum has both offered and not-offered rows, or (with the cluster
-        variance) a cluster spans strata or offer arms.
+        When no stratum has both offered and not-offered rows, or (with a cluster column)
+        the core finds a cluster that spans (stratum, offer) cells.
     """
-    if spec.variance == "cluster":
-        _check_clusters(spec, dataset)
     zeros = np.zeros(dataset.n_rows)
-    cells = _cells(dataset, zeros, np.ones(dataset.n_rows, dtype=bool), cluster=False,
-                   spec=spec)
+    cells = _cells(dataset, zeros, np.ones(dataset.n_rows, dtype=bool), spec=spec)
     reasons = {e.label: e.reason for e in excluded_strata(cells)}
     strata = []
     for k, label in enumerate(cells.labels):
@@ -291,23 +274,6 @@ def _column_probabilities(spec: Spec, dataset: Dataset, labels: list[Any]) -> di
     return {label: float(values[first[label]]) for label in labels}
 
 
-def _check_clusters(spec: Spec, dataset: Dataset) -> None:
-    """Every cluster must sit in one stratum and one offer arm (it was offered as a whole)."""
-    assert dataset.cluster is not None
-    first: dict[Any, int] = {}
-    for i, (cluster, label, offer) in enumerate(zip(dataset.cluster.tolist(),
-                                                    dataset.stratum.tolist(),
-                                                    dataset.offer.tolist(), strict=True)):
-        j = first.setdefault(cluster, i)
-        if (label, offer) != (dataset.stratum[j], dataset.offer[j]):
-            raise DataError(None, spec.columns.cluster, (),
-                            f"cluster '{cluster}' spans more than one stratum or offer arm: "
-                            f"stratum '{dataset.stratum[j]}', offer {dataset.offer[j]} in "
-                            f"{dataset.where(j)} but stratum '{label}', offer {offer} in "
-                            f"{dataset.where(i)}",
-                            "clusters must be nested in strata and offered as a whole")
-
-
 def _attrition(outcome: str, values: np.ndarray, dataset: Dataset) -> tuple[AttritionCell, ...]:
     missing = np.isnan(values)
     if not missing.any():
@@ -326,8 +292,37 @@ def _attrition(outcome: str, values: np.ndarray, dataset: Dataset) -> tuple[Attr
                  for (label, offer) in keys for m, n in [counts[(label, offer)]] if m)
 
 
-def data_warnings(spec: Spec, dataset: Dataset) -> list[str]:
-    """Return the warnings known before fitting: unused covariates or cluster, dropped rows.
+def _fit_outcome(spec: Spec, dataset: Dataset, name: str,
+                 probabilities: dict[Any, float] | None) -> OutcomeResult:
+    """`fit_all` on the rows that have outcome `name`; the core's refusals become errors
+    located in the spec or the data."""
+    values = dataset.outcomes[name]
+    keep = ~np.isnan(values)
+    if not keep.any():
+        raise DataError(None, name, (), "the outcome is missing in every row")
+    with _floating_point_guard(name, values):
+        cells = _cells(dataset, values, keep, spec=spec)
+        present = set(cells.labels)
+        mapping = None if probabilities is None else \
+            {k: v for k, v in probabilities.items() if k in present}
+        try:
+            comparison = fit_all(cells, estimators=spec.estimators, variance=variance_used(spec),
+                                 assignment=spec.assignment, sampling=spec.sampling,
+                                 level=spec.level, offer_probability=mapping)
+        except EstimatorError as exc:
+            raise located_error(exc, spec, dataset, rows=np.flatnonzero(keep),
+                                probabilities=mapping) from None
+    return OutcomeResult(name, cells, comparison, int((~keep).sum()),
+                         _attrition(name, values, dataset))
+
+
+def check_with_core(spec: Spec, dataset: Dataset,
+                    probabilities: dict[Any, float] | None) -> list[str]:
+    """Let the core apply every rule `strativ run` meets, and return the design warnings.
+
+    The rules (design probabilities in (0, 1), cluster nesting, option combinations) live in
+    the core only, so `strativ check` asks the core on the first outcome, exactly as the run
+    will; its numbers are not shown.
 
     Parameters
     ----------
@@ -335,53 +330,22 @@ def data_warnings(spec: Spec, dataset: Dataset) -> list[str]:
         The validated spec.
     dataset : Dataset
         The loaded rows.
+    probabilities : dict or None
+        The resolved design probabilities.
 
     Returns
     -------
     list of str
-        Plain-language warnings.
+        The offer-count warnings (switch from block assignment, binomial rejections).
+
+    Raises
+    ------
+    SpecError, DataError
+        Where the core refuses the spec or the data, located as in `run_spec`.
     """
-    out = []
-    cols = spec.columns
-    if cols.covariates:
-        out.append("covariates " + ", ".join(cols.covariates) + " were checked and recorded "
-                   "but not used: the estimators do not adjust for covariates yet, so every "
-                   "estimate is unadjusted")
-    if cols.cluster is not None and spec.variance != "cluster":
-        out.append(f"cluster column '{cols.cluster}' is not used by the '{spec.variance}' "
-                   "variance; if offers went to whole clusters set inference.variance: cluster")
-    if dataset.n_dropped:
-        parts = ", ".join(f"{name}: {count}" for name, count in dataset.dropped)
-        out.append(f"{dataset.n_dropped} of {dataset.n_read} rows were dropped because a value "
-                   f"was missing ({parts})")
-    return out
-
-
-def _fit_warnings(outcomes: list[OutcomeResult]) -> list[str]:
-    out = []
-    for result in outcomes:
-        if result.missing:
-            offered = sum(a.missing for a in result.attrition if a.arm == "offered")
-            out.append(f"outcome '{result.outcome}' is missing in {result.missing} rows "
-                       f"({offered} offered, {result.missing - offered} not offered); they are "
-                       "left out for this outcome (attrition by stratum and arm in results.json)")
-        undefined: dict[str, list[str]] = {}
-        weak: list[str] = []
-        for est in result.comparison.estimates:
-            f = est.first_stage_f
-            if est.estimate is None:
-                undefined.setdefault(est.undefined_reason or "undefined", []).append(
-                    est.estimator)
-            elif f is not None and f < WEAK_FIRST_STAGE_F:
-                weak.append(f"{est.estimator} F = {f:.1f}")
-        for reason, names in undefined.items():
-            out.append(f"'{result.outcome}': no estimate from {', '.join(names)}: {reason}; "
-                       "only the weak-IV robust confidence set is reported")
-        if weak:
-            out.append(f"'{result.outcome}': the first stage is weak ({', '.join(weak)}; below "
-                       f"{WEAK_FIRST_STAGE_F:g}); read the confidence set rather than the "
-                       "normal interval")
-    return out
+    name = next(iter(dataset.outcomes))
+    result = _fit_outcome(spec, dataset, name, probabilities)
+    return offer_count_warnings(name, result.comparison)
 
 
 def run_spec(spec: Spec, dataset: Dataset) -> Run:
@@ -409,27 +373,6 @@ def run_spec(spec: Spec, dataset: Dataset) -> Run:
         overflows on an outcome (values far too large for double precision).
     """
     probabilities = design_probabilities(spec, dataset)
-    use_cluster = spec.variance == "cluster"
-    if use_cluster:
-        _check_clusters(spec, dataset)
-    results = []
-    for name, values in dataset.outcomes.items():
-        keep = ~np.isnan(values)
-        if not keep.any():
-            raise DataError(None, name, (), "the outcome is missing in every row")
-        with _floating_point_guard(name, values):
-            cells = _cells(dataset, values, keep, cluster=use_cluster, spec=spec)
-            present = set(cells.labels)
-            mapping = None if probabilities is None else \
-                {k: v for k, v in probabilities.items() if k in present}
-            try:
-                comparison = fit_all(cells, estimators=spec.estimators,
-                                     variance=spec.variance, assignment=spec.assignment,
-                                     sampling=spec.sampling, level=spec.level,
-                                     offer_probability=mapping)
-            except EstimatorError as exc:
-                raise _data_error(exc, spec) from None
-        results.append(OutcomeResult(name, cells, comparison, int((~keep).sum()),
-                                     _attrition(name, values, dataset)))
+    results = [_fit_outcome(spec, dataset, name, probabilities) for name in dataset.outcomes]
     return Run(spec, dataset, probabilities, tuple(results),
-               tuple(data_warnings(spec, dataset) + _fit_warnings(results)))
+               tuple(data_warnings(spec, dataset) + fit_warnings(results)))

@@ -14,14 +14,19 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from strativ.estimators.options import (
+    ASSIGNMENTS,
+    DEFAULTS,
+    ESTIMATORS,
+    SAMPLINGS,
+    USES_ASSIGNMENT,
+    VARIANCES,
+)
+
 from .errors import SpecError
 from .yamlmarks import KeyPath, compose_with_lines, dotted, line_of
 
 __all__ = [
-    "ESTIMATORS",
-    "VARIANCES",
-    "ASSIGNMENTS",
-    "SAMPLINGS",
     "FORMATS",
     "DATA_SUFFIXES",
     "Columns",
@@ -32,10 +37,6 @@ __all__ = [
     "suggest",
 ]
 
-ESTIMATORS = ("fixed_effects", "weighted", "interacted")
-VARIANCES = ("stratified", "robust", "robust_scaled", "cluster")
-ASSIGNMENTS = ("block", "independent")
-SAMPLINGS = ("fixed", "random")
 FORMATS = ("json", "csv")
 DATA_SUFFIXES = (".csv", ".parquet", ".pq")
 DEFAULT_OUTPUT_DIR = "strativ_out"
@@ -338,16 +339,18 @@ def load_spec(path: Path | str) -> Spec:
     offer_probability = _offer_probability(check, design.get("offer_probability"), columns)
     inference = check.mapping(top.get("inference"), ("inference",), _SECTIONS["inference"])
     variance = check.choice(inference.get("variance"), ("inference", "variance"), VARIANCES,
-                            "stratified")
+                            str(DEFAULTS["variance"]))
     if variance == "cluster" and columns.cluster is None:
         raise check.error(("inference", "variance"),
                           "variance 'cluster' needs a cluster column",
                           "add 'cluster: <column>' under 'columns'")
     assignment = check.choice(design.get("assignment"), ("design", "assignment"),
-                              ASSIGNMENTS, "block")
-    if variance == "cluster" and assignment == "independent":
+                              ASSIGNMENTS, str(DEFAULTS["assignment"]))
+    if columns.cluster is not None and variance in USES_ASSIGNMENT \
+            and assignment == "independent":
         raise check.error(("design", "assignment"),
-                          "assignment 'independent' cannot be combined with variance 'cluster'",
+                          f"assignment 'independent' cannot be combined with the cluster column "
+                          f"'{columns.cluster}' under variance '{variance}' (the cluster form)",
                           "clusters are offered as whole blocks: use assignment: block")
     output = check.mapping(top.get("output"), ("output",), _SECTIONS["output"])
     out_dir = DEFAULT_OUTPUT_DIR if output.get("dir") is None else \
@@ -367,9 +370,9 @@ def load_spec(path: Path | str) -> Spec:
         offer_probability=offer_probability,
         assignment=assignment,
         sampling=check.choice(design.get("sampling"), ("design", "sampling"), SAMPLINGS,
-                              "random"),
+                              str(DEFAULTS["sampling"])),
         estimators=check.choices(top.get("estimators"), ("estimators",), ESTIMATORS,
-                                 ESTIMATORS),
+                                 tuple(DEFAULTS["estimators"])),
         variance=variance,
         level=_level(check, inference.get("level")),
         output_dir=(path.parent / Path(out_dir).expanduser()).resolve(),
@@ -489,9 +492,10 @@ def _offer_probability(check: _Checker, value: Any, columns: Columns) -> OfferPr
     lines: list[int | None] = []
     for label, prob in value.items():
         where = keys + (label,)
-        if isinstance(prob, bool) or not isinstance(prob, (int, float)) or not 0 < prob < 1:
-            raise check.error(where, f"offer probability of stratum '{label}' is {prob!r}; "
-                              "it must be a number strictly between 0 and 1")
+        if isinstance(prob, bool) or not isinstance(prob, (int, float)):
+            raise check.error(where, f"offer probability of stratum '{label}' is "
+                              f"{_kind(prob)}; it must be a number",
+                              "write the design probability, for example 0.25")
         if str(label) in dict(pairs):
             raise check.error(where, f"stratum '{label}' is given twice in "
                               "'design.offer_probability'", "keep one of them")
@@ -503,7 +507,7 @@ def _offer_probability(check: _Checker, value: Any, columns: Columns) -> OfferPr
 def _level(check: _Checker, value: Any) -> float:
     keys = ("inference", "level")
     if value is None:
-        return 0.95
+        return float(DEFAULTS["level"])
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0 < value < 1:
         hint = f"write {value / 100:g} for {value:g} %" \
             if isinstance(value, (int, float)) and not isinstance(value, bool) \

@@ -15,6 +15,15 @@ import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
+from strativ.estimators.options import (
+    ASSIGNMENTS,
+    DEFAULTS,
+    DESCRIPTIONS,
+    ESTIMATORS,
+    SAMPLINGS,
+    VARIANCES,
+)
+
 from .errors import UsageError
 from .tables import read_table
 from .values import parse_binary, parse_number
@@ -111,6 +120,19 @@ def _names(profiles: list[ColumnProfile]) -> str:
     return ", ".join(_scalar(p.name) for p in profiles) or "none found"
 
 
+def _described(option: str, values: tuple[str, ...], indent: int = 0) -> list[str]:
+    """Comment lines describing each value of `option` (from the option vocabulary)."""
+    pad = " " * indent
+    return [f"# {pad}  {value}: {DESCRIPTIONS[option][value]}" for value in values]
+
+
+def _option(option: str, values: tuple[str, ...], *, indent: int) -> list[str]:
+    """The commented default of `option`, its choices, and one line per choice."""
+    line = f"# {' ' * indent}{option}: {DEFAULTS[option]}"
+    return [f"{line.ljust(34)} # {' | '.join(values)}",
+            *_described(option, values, indent)]
+
+
 def starter_spec(data: Path, spec_path: Path) -> str:
     """Return the text of a starter spec for `data`, to be saved at `spec_path`.
 
@@ -156,17 +178,19 @@ def starter_spec(data: Path, spec_path: Path) -> str:
         out.append(f"  # stratum: <column>    # or a list, combined; columns with few levels: "
                    f"{_names(grouped)}")
     out += [
-        "  # cluster: <column>    # optional: the unit that was offered as a whole",
+        "  # cluster: <column>    # optional: the unit offered as a whole; every variance "
+        "flavour then reads it",
         "  # covariates: [<column>, ...]   # optional: recorded, not yet used for adjustment",
         "",
         "# design:",
         "#   offer_probability: estimated   # or a column name, or {stratum: probability, ...}",
-        "#   assignment: block              # block | independent",
-        "#   sampling: random               # random | fixed",
-        "# estimators: [fixed_effects, weighted, interacted]",
+        *_option("assignment", ASSIGNMENTS, indent=2),
+        *_option("sampling", SAMPLINGS, indent=2),
+        f"# estimators: [{', '.join(DEFAULTS['estimators'])}]",
+        *_described("estimators", ESTIMATORS),
         "# inference:",
-        "#   variance: stratified           # stratified | robust | robust_scaled | cluster",
-        "#   level: 0.95",
+        *_option("variance", VARIANCES, indent=2),
+        f"#   level: {DEFAULTS['level']}",
         "# output:",
         "#   dir: strativ_out",
         "#   formats: [json, csv]",

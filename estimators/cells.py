@@ -51,6 +51,11 @@ class ClusterSums:
     """The matching sum of squared take-up cluster deviations, (K, 2)."""
     size_sq: np.ndarray
     """Sum over clusters of the squared cluster size, (K, 2)."""
+    size_dev_outcome: np.ndarray
+    """Sum over clusters of cluster size times the cluster's outcome deviation total, (K, 2);
+    the cluster-robust sandwich needs it when cluster sizes differ."""
+    size_dev_take_up: np.ndarray
+    """The same for take-up, (K, 2)."""
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -238,12 +243,15 @@ def _cluster_sums(
     def per_cell(weights: np.ndarray | None) -> np.ndarray:
         return np.bincount(first_cell, weights=weights, minlength=n_cells).reshape(-1, 2)
 
+    size = np.bincount(codes, minlength=n_clusters).astype(float)
     return ClusterSums(
         count=per_cell(None).astype(np.int64),
         q_outcome=per_cell(dev_y * dev_y),
         q_cross=per_cell(dev_y * dev_d),
         q_take_up=per_cell(dev_d * dev_d),
-        size_sq=per_cell(np.bincount(codes, minlength=n_clusters).astype(float) ** 2),
+        size_sq=per_cell(size**2),
+        size_dev_outcome=per_cell(size * dev_y),
+        size_dev_take_up=per_cell(size * dev_d),
     )
 
 

@@ -33,19 +33,39 @@ class Design:
     """Centred within-cell sums of squares and products of (y, d), (K, 2, 2, 2)."""
     cov: np.ndarray
     """Within-cell covariance of (y, d) with divisor n - 1, (K, 2, 2, 2); a one-unit cell gets
-    the pooled covariance of the other cells of its arm (of all cells if its arm has no
-    cell of two or more)."""
-    cluster_q: np.ndarray | None
-    """Cluster-level sums of squares of (y, d) deviations (K, 2, 2, 2), or None."""
-    n_clusters: int
-    """Clusters in the analysis sample (0 without a cluster column)."""
-    cluster_size_sq: np.ndarray | None
-    """Sum of squared cluster sizes per stratum (K,), or None: with clusters sampled whole,
-    it replaces n_s in the between-strata term."""
+    the pooled covariance of the other cells of its arm."""
     single_unit_cells: int
     """Cells of one unit that borrowed the pooled within-arm covariance."""
+    unit_rule: str
+    """``within``, or ``pairs`` when an arm has no cell of two or more units: no within-cell
+    variance can be estimated or borrowed, so each stratum counts as one draw."""
     exclusions: tuple[ExcludedStratum, ...]
     """Strata left out, with reasons."""
+    cluster_q: np.ndarray | None = None
+    """Cluster-level sums of squares of (y, d) deviation totals (K, 2, 2, 2), or None."""
+    cluster_within: np.ndarray | None = None
+    """``G_sz / (G_sz - 1)`` times `cluster_q`; a one-cluster cell gets its size times the
+    pooled per-unit cluster variance of its arm (K, 2, 2, 2), or None."""
+    cluster_count: np.ndarray | None = None
+    """Clusters per cell (K, 2), or None."""
+    cluster_size_sq: np.ndarray | None = None
+    """Sum of squared cluster sizes per cell (K, 2), or None."""
+    cluster_size_dev: np.ndarray | None = None
+    """Sum over clusters of size times deviation total of (y, d), (K, 2, 2), or None."""
+    single_cluster_cells: int = 0
+    """Cells of one cluster that borrowed the pooled cluster variance of their arm."""
+    cluster_rule: str = "within"
+    """As `unit_rule`, for clusters: ``pairs`` when an arm has no cell of two clusters."""
+
+    @property
+    def clustered(self) -> bool:
+        """Whether the cell table carried a cluster column."""
+        return self.cluster_q is not None
+
+    @property
+    def n_clusters(self) -> int:
+        """Clusters in the analysis sample (0 without a cluster column)."""
+        return 0 if self.cluster_count is None else int(self.cluster_count.sum())
 
     @property
     def n_stratum(self) -> np.ndarray:
@@ -82,22 +102,35 @@ def _moment_matrix(yy: np.ndarray, yd: np.ndarray, dd: np.ndarray) -> np.ndarray
     return out
 
 
-def _unbiased_cov(ss: np.ndarray, n: np.ndarray) -> tuple[np.ndarray, int]:
-    """Cell covariances with divisor n - 1; a one-unit cell borrows the pooled covariance of
-    the other cells of its arm, or of all cells when its arm has no cell of two or more."""
-    cov = ss / np.maximum(n - 1.0, 1.0)[..., None, None]
-    single = n == 1
-    donors_all = n >= 2
-    dof_all = (n[donors_all] - 1.0).sum()
-    pooled_all = ss[donors_all].sum(axis=0) / dof_all if dof_all > 0 else np.zeros((2, 2))
+def _borrowed(own: np.ndarray, total: np.ndarray, weight: np.ndarray, count: np.ndarray,
+              n: np.ndarray) -> tuple[np.ndarray, int, str]:
+    """Per-cell variance moments where a cell of one unit (or cluster) borrows its arm's.
+
+    ``own`` holds each cell's moment (``n_sz`` times a per-unit covariance); a cell with
+    ``count == 1`` gets ``n_sz`` times its arm's pooled per-unit covariance
+    ``sum(total) / sum(weight)`` over the cells with ``count >= 2``. Returns the moments, the
+    number of borrowing cells, and ``pairs`` when an arm has no cell to borrow from.
+    """
+    out = own.copy()
+    single = count == 1
     for arm in (0, 1):
         lonely = single[:, arm]
         if not lonely.any():
             continue
-        donors = n[:, arm] >= 2
-        dof = (n[donors, arm] - 1.0).sum()
-        cov[lonely, arm] = ss[donors, arm].sum(axis=0) / dof if dof > 0 else pooled_all
-    return cov, int(single.sum())
+        donors = count[:, arm] >= 2
+        if not donors.any():
+            return out, int(single.sum()), "pairs"
+        pooled = total[donors, arm].sum(axis=0) / weight[donors, arm].sum()
+        out[lonely, arm] = n[lonely, arm][:, None, None] * pooled
+    return out, int(single.sum()), "within"
+
+
+def _unit_moments(ss: np.ndarray, n: np.ndarray) -> tuple[np.ndarray, int, str]:
+    """Within-cell covariances with divisor n - 1; a one-unit cell borrows its arm's pooled
+    covariance ``sum(ss) / sum(n - 1)`` (METHODS.md §4)."""
+    own = ss * (n / np.maximum(n - 1.0, 1.0))[..., None, None]
+    moment, single, rule = _borrowed(own, ss, n - 1.0, n, n)
+    return moment / n[..., None, None], single, rule
 
 
 def excluded_strata(cells: CellTable) -> tuple[ExcludedStratum, ...]:
@@ -160,25 +193,34 @@ def analysis_design(cells: CellTable) -> Design:
             "check the offer and stratum columns."
         )
     ss = _moment_matrix(cells.ss_outcome[keep], cells.ss_cross[keep], cells.ss_take_up[keep])
-    cov, single = _unbiased_cov(ss, n[keep])
-    cluster_q = None
-    n_clusters = 0
-    size_sq = None
+    n_keep = n[keep]
+    cov, single, unit_rule = _unit_moments(ss, n_keep)
+    extra: dict[str, Any] = {}
     if cells.clusters is not None:
         c = cells.clusters
-        cluster_q = _moment_matrix(c.q_outcome[keep], c.q_cross[keep], c.q_take_up[keep])
-        n_clusters = int(c.count[keep].sum())
-        size_sq = c.size_sq[keep].sum(axis=1)
+        q = _moment_matrix(c.q_outcome[keep], c.q_cross[keep], c.q_take_up[keep])
+        count = c.count[keep].astype(float)
+        own = q * (count / np.maximum(count - 1.0, 1.0))[..., None, None]
+        within, lonely, cluster_rule = _borrowed(own, own, n_keep, count, n_keep)
+        extra = {
+            "cluster_q": q,
+            "cluster_within": within,
+            "cluster_count": count,
+            "cluster_size_sq": c.size_sq[keep].astype(float),
+            "cluster_size_dev": np.stack([c.size_dev_outcome[keep], c.size_dev_take_up[keep]],
+                                         axis=-1),
+            "single_cluster_cells": lonely,
+            "cluster_rule": cluster_rule,
+        }
     return Design(
         labels=tuple(label for label, k in zip(cells.labels, keep, strict=True) if k),
-        n=n[keep],
+        n=n_keep,
         mean_outcome=cells.mean_outcome[keep].astype(float),
         mean_take_up=cells.mean_take_up[keep].astype(float),
         ss=ss,
         cov=cov,
-        cluster_q=cluster_q,
-        n_clusters=n_clusters,
-        cluster_size_sq=size_sq,
         single_unit_cells=single,
+        unit_rule=unit_rule,
         exclusions=tuple(exclusions),
+        **extra,
     )

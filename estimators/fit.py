@@ -8,20 +8,30 @@ from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
+from scipy.stats import t as student_t
 
 from .cells import CellTable
 from .design import Design, analysis_design
 from .diagnostics import constant_effect_test, negative_first_stages
-from .engine import ASSIGNMENTS, SAMPLINGS, VARIANCES, covariance, ratio_variance
+from .engine import covariance, ratio_variance, rule
 from .errors import InputError
+from .first_stage import first_stage_statistics
 from .forms import LinearForm, complier_form, design_weighted_form, fixed_effects_form
 from .intervals import critical_value, fieller_set, normal_interval
-from .results import Comparison, Estimate
+from .offer_counts import offer_counts
+from .options import (
+    ASSIGNMENTS,
+    ESTIMATORS,
+    SAMPLINGS,
+    USES_ASSIGNMENT,
+    USES_SAMPLING,
+    VARIANCES,
+    WEAK_FIRST_STAGE_F,
+)
+from .results import Comparison, ConfidenceSet, Estimate, OfferCounts
 from .strata import contrast, size_weighted, stratum_table
 
 __all__ = ["ESTIMATORS", "fit", "fit_all"]
-
-ESTIMATORS = ("fixed_effects", "weighted", "interacted")
 
 ESTIMANDS = {
     "fixed_effects": "stratum effects weighted by n*p(1-p)*first stage; the LATE only if "
@@ -41,7 +51,8 @@ def _choice(value: Any, allowed: Sequence[str], argument: str) -> str:
 
 def _check_options(
     cells: CellTable, variance: str, assignment: str, sampling: str, level: float
-) -> None:
+) -> str:
+    """Validate the options; return the flavour."""
     if not isinstance(cells, CellTable):
         raise InputError("cells", "expected a CellTable from build_cells or cells_from_frame.")
     _choice(variance, VARIANCES, "variance")
@@ -49,17 +60,17 @@ def _check_options(
     _choice(sampling, SAMPLINGS, "sampling")
     if not isinstance(level, (int, float)) or not 0.0 < float(level) < 1.0:
         raise InputError("level", f"expected a confidence level between 0 and 1, got {level!r}.")
-    if variance == "cluster":
-        if cells.clusters is None:
-            raise InputError(
-                "variance", "'cluster' needs cells built with cluster=...; pass the cluster ids."
-            )
-        if assignment == "independent":
-            raise InputError(
-                "assignment",
-                "'independent' is not supported with variance='cluster': clusters are offered "
-                "as blocks; use assignment='block'.",
-            )
+    if variance == "cluster" and cells.clusters is None:
+        raise InputError(
+            "variance", "'cluster' needs cells built with cluster=...; pass the cluster ids."
+        )
+    if variance == "cluster" and assignment == "independent":
+        raise InputError(
+            "assignment",
+            "'independent' is not supported with variance='cluster': clusters are offered as "
+            "blocks; use assignment='block'.",
+        )
+    return variance
 
 
 def _probabilities(design: Design, offer_probability: Mapping[Any, float] | None):
@@ -100,7 +111,8 @@ def _form(design: Design, estimator: str, probability: np.ndarray | None) -> Lin
     return complier_form(design, saturated=True)
 
 
-def _notes(estimator: str, variance: str, probability: np.ndarray | None) -> tuple[str, ...]:
+def _notes(estimator: str, variance: str, probability: np.ndarray | None,
+           counts: OfferCounts | None) -> tuple[str, ...]:
     notes = []
     if estimator == "weighted" and variance in ("robust", "robust_scaled"):
         notes.append(
@@ -109,9 +121,34 @@ def _notes(estimator: str, variance: str, probability: np.ndarray | None) -> tup
         )
     if estimator == "weighted" and probability is not None:
         notes.append("weights use the design offer probabilities (ratio means per arm)")
+    if estimator == "weighted" and counts is not None and counts.realized_shares_used:
+        notes.append("offered counts match block assignment at the design probabilities, so "
+                     "the realized offer shares (the exact assignment probabilities) are used")
     if estimator == "interacted" and variance in ("robust", "robust_scaled"):
         notes.append("robust variance: delta method on the saturated regression's sandwich")
     return tuple(notes)
+
+
+def _critical(design: Design, variance: str, level: float) -> float:
+    """Normal critical value; Student t on K - 1 degrees of freedom under the pairs rule,
+    where the variance rests on K stratum draws."""
+    k = len(design.labels)
+    if rule(design, variance) == "pairs" and k >= 2:
+        return float(student_t.ppf(0.5 + level / 2.0, k - 1))
+    return critical_value(level)
+
+
+def _std_error_problem(design: Design, form: LinearForm, variance: str) -> str | None:
+    if variance in ("robust", "robust_scaled"):
+        if design.n_units <= form.n_regressors:
+            return (f"the regression has {form.n_regressors} regressors for {design.n_units} "
+                    "units, so its residuals are all zero; use the stratified variance")
+        if design.clustered and design.n_clusters < 2:
+            return "a single cluster: no cluster-robust variance exists"
+    if rule(design, variance) == "pairs" and len(design.labels) < 2:
+        return ("one stratum with one unit (or cluster) in an arm: no variance can be "
+                "estimated")
+    return None
 
 
 def _estimate(
@@ -128,19 +165,28 @@ def _estimate(
     options = {"variance": variance, "assignment": assignment, "sampling": sampling}
     omega = covariance(design, [form], **options)
     spread = covariance(design, [form], centred=True, **options)
-    z = critical_value(level)
+    z = _critical(design, variance, level)
     n, d = form.numerator, form.denominator
     a, b, c = float(omega[0, 0]), float(omega[0, 1]), float(omega[1, 1])
-    conf = fieller_set(n, d, a, b, c, z)
-    f_stat = d * d / c if c > 0 else None
+    problem = _std_error_problem(design, form, variance)
+    strength = first_stage_statistics(design, form, estimator, **options)
+    finite = math.isfinite(a + b + c) and problem is None
+    conf = fieller_set(n, d, a, b, c, z) if finite else ConfidenceSet(shape="whole_line")
+    f_null = d * d / c if finite and c > 0 else None
     estimate = std_error = interval = None
     reason = None
     if d == 0:
         reason = "the overall first stage is zero: offer did not change take-up"
     else:
         estimate = n / d
-        std_error = math.sqrt(ratio_variance(omega, estimate, d))
-        interval = normal_interval(estimate, std_error, z)
+        var = ratio_variance(omega, estimate, d) if finite else math.nan
+        if problem is None and not var > 0.0:
+            problem = "the estimate has no estimated sampling variance in this flavour"
+        if problem is None:
+            std_error = math.sqrt(var)
+            interval = normal_interval(estimate, std_error, z)
+    # an F of None with a non-zero first stage means a first stage measured without noise
+    weak = d == 0 if strength.f is None else strength.f < WEAK_FIRST_STAGE_F
     return Estimate(
         estimator=estimator,
         estimand=ESTIMANDS[estimator],
@@ -148,20 +194,45 @@ def _estimate(
         std_error=std_error,
         interval=interval,
         confidence_set=conf,
-        first_stage_f=f_stat,
+        first_stage_f=strength.f,
+        first_stage_f_unadjusted=strength.f_unadjusted,
+        first_stage_f_null=f_null,
+        first_stage_instruments=strength.instruments,
+        weak_first_stage=weak,
         itt=n,
-        itt_std_error=math.sqrt(max(float(spread[0, 0]), 0.0)),
+        itt_std_error=_root(spread[0, 0]),
         first_stage=d,
-        first_stage_std_error=math.sqrt(max(float(spread[1, 1]), 0.0)),
+        first_stage_std_error=_root(spread[1, 1]),
         n_units=design.n_units,
         n_strata=len(design.labels),
         variance=variance,
-        assignment=assignment,
-        sampling=sampling,
+        assignment=assignment if variance in USES_ASSIGNMENT else None,
+        sampling=sampling if variance in USES_SAMPLING else None,
         level=float(level),
         undefined_reason=reason,
+        std_error_reason=problem if estimate is not None else None,
         notes=notes,
     )
+
+
+def _root(value: float) -> float | None:
+    value = float(value)
+    return math.sqrt(max(value, 0.0)) if math.isfinite(value) else None
+
+
+def _prepare(cells: CellTable, variance: str, assignment: str, sampling: str, level: float,
+             offer_probability: Mapping[Any, float] | None):
+    """Validate, build the design, and apply the offer-count rule."""
+    variance = _check_options(cells, variance, assignment, sampling, level)
+    design = analysis_design(cells)
+    probability = _probabilities(design, offer_probability)
+    counts = None
+    if probability is not None and not design.clustered:
+        counts = offer_counts(design, probability, assignment=assignment, level=level)
+        assignment = counts.assignment_used
+        if counts.realized_shares_used:
+            probability = None
+    return design, variance, assignment, probability, counts
 
 
 def fit(
@@ -225,9 +296,8 @@ def fit(
     >>> fit(cells, estimator="weighted").interval  # doctest: +SKIP
     """
     estimator = _choice(estimator, ESTIMATORS, "estimator")
-    _check_options(cells, variance, assignment, sampling, level)
-    design = analysis_design(cells)
-    probability = _probabilities(design, offer_probability)
+    design, variance, assignment, probability, counts = _prepare(
+        cells, variance, assignment, sampling, level, offer_probability)
     form = _form(design, estimator, probability)
     return _estimate(
         design,
@@ -237,7 +307,7 @@ def fit(
         assignment=assignment,
         sampling=sampling,
         level=level,
-        notes=_notes(estimator, variance, probability),
+        notes=_notes(estimator, variance, probability, counts),
     )
 
 
@@ -285,33 +355,51 @@ def fit_all(
     names = [_choice(e, ESTIMATORS, "estimators") for e in estimators]
     if not names or len(set(names)) != len(names):
         raise InputError("estimators", f"expected distinct estimator names, got {list(names)}.")
-    _check_options(cells, variance, assignment, sampling, level)
-    design = analysis_design(cells)
-    probability = _probabilities(design, offer_probability)
+    design, variance, assignment, probability, counts = _prepare(
+        cells, variance, assignment, sampling, level, offer_probability)
     options = {"variance": variance, "assignment": assignment, "sampling": sampling}
+    forms = {name: _form(design, name, probability) for name in names}
     estimates = tuple(
-        _estimate(
-            design,
-            _form(design, name, probability),
-            name,
-            level=level,
-            notes=_notes(name, variance, probability),
-            **options,
-        )
+        _estimate(design, forms[name], name, level=level,
+                  notes=_notes(name, variance, probability, counts), **options)
         for name in names
     )
-    fe = fixed_effects_form(design)
+    fe = forms.get("fixed_effects") or fixed_effects_form(design)
     late = complier_form(design, saturated=True)
+    complier_name = "interacted"
+    reference = forms.get("interacted") or late
+    if "weighted" in forms and (probability is not None or "interacted" not in forms):
+        complier_name, reference = "weighted", forms["weighted"]
     notes = []
     if probability is None and {"weighted", "interacted"} <= set(names) and late.denominator:
         notes.append(
             "weighted and interacted share one point estimate here: with estimated offer "
             "shares and no covariates both weight strata by n*first stage"
         )
-    if design.single_unit_cells:
+    if counts is not None and counts.switched:
+        notes.append(
+            "offered counts are not within rounding of n*probability in every stratum, so "
+            "offers were not drawn as fixed blocks at these probabilities: the independent "
+            "assignment form is used"
+        )
+    if design.single_unit_cells and rule(design, variance) == "within":
         notes.append(
             f"{design.single_unit_cells} one-unit cell(s) borrowed the pooled within-arm "
             "variance of their arm"
+        )
+    if design.single_cluster_cells and variance == "cluster" and design.cluster_rule == "within":
+        notes.append(
+            f"{design.single_cluster_cells} one-cluster cell(s) borrowed the pooled cluster "
+            "variance of their arm"
+        )
+    variance_rule = rule(design, variance)
+    if variance_rule == "pairs":
+        unit = "cluster" if variance == "cluster" else "unit"
+        notes.append(
+            f"an offer arm has no cell of two or more {unit}s, so no within-cell variance "
+            "exists: each stratum is treated as one independent draw (conservative when "
+            "effects differ across strata), with a t reference on strata - 1 degrees of "
+            "freedom"
         )
     pooled = late.numerator / late.denominator if late.denominator != 0 else None
     spread = None
@@ -321,9 +409,12 @@ def fit_all(
     return Comparison(
         estimates=estimates,
         strata=stratum_table(design, fe, late, variance=variance),
-        gap=contrast(design, fe, late, level=level, **options),
+        gap=contrast(design, fe, reference, complier_name, level=level, **options),
         size_weighted=size_weighted(design, variance=variance, sampling=sampling),
         notes=tuple(notes),
         constant_effect=constant_effect_test(design, theta=pooled, scale=spread),
         negative_first_stage=negative_first_stages(design, level=level),
+        offer_counts=counts,
+        variance_rule=variance_rule,
+        single_cluster_cells=design.single_cluster_cells,
     )

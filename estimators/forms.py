@@ -52,6 +52,14 @@ class LinearForm:
     stratum_weight: np.ndarray | None
     """Normalized stratum weights a_s / sum(a) when the form has one (None for design
     probabilities, whose arms carry different weights)."""
+    stratum_contribution: np.ndarray
+    """Each stratum's share of (N, D), summing to (N, D), (K, 2): the unit of the ``pairs``
+    rule, under which every stratum is one independent draw."""
+    stratum_contribution_centred: np.ndarray
+    """The same minus the stratum's weight times (N, D), summing to zero, (K, 2)."""
+    unit_weight: np.ndarray
+    """Regression weight of a unit in each cell (K, 2): ones without weights, the inverse
+    offer probability of its arm for the weighted estimator."""
 
 
 def _stratum_vectors(design: Design) -> np.ndarray:
@@ -64,6 +72,7 @@ def _stratum_weight_form(
     slope: np.ndarray,
     shifts: tuple[np.ndarray, np.ndarray] | None,
     n_regressors: int,
+    unit_weight: np.ndarray | None = None,
 ) -> LinearForm:
     """Form with ``a_s = n_s h(p_s)``: ``weight`` is a_s, ``slope`` is n_s h'(p_s).
 
@@ -95,6 +104,9 @@ def _stratum_weight_form(
         robust_shift_centred=shifts[1],
         n_regressors=n_regressors,
         stratum_weight=b,
+        stratum_contribution=b[:, None] * v,
+        stratum_contribution_centred=b[:, None] * centred,
+        unit_weight=np.ones_like(design.n) if unit_weight is None else unit_weight,
     )
 
 
@@ -147,7 +159,9 @@ def complier_form(design: Design, *, saturated: bool) -> LinearForm:
         arm_mean = (n_s[:, None, None] * means).sum(axis=0) / n_s.sum()
         shifts = (means - arm_mean.mean(axis=0), means - arm_mean[None, :, :])
         k = 2
-    return _stratum_weight_form(design, n_s, np.zeros_like(n_s), shifts, k)
+    share = design.offer_share[:, None]
+    weight = None if saturated else 1.0 / np.hstack([1.0 - share, share])
+    return _stratum_weight_form(design, n_s, np.zeros_like(n_s), shifts, k, weight)
 
 
 def design_weighted_form(design: Design, probability: np.ndarray) -> LinearForm:
@@ -183,6 +197,8 @@ def design_weighted_form(design: Design, probability: np.ndarray) -> LinearForm:
     numerator, denominator = arm_mean[1] - arm_mean[0]
     influence = (sign * (b / design.n))[..., None] * (means - arm_mean[None, :, :])
     alpha = (totals[:, None] * arm_mean).sum(axis=0) / totals.sum()
+    contribution = np.einsum("sz,sza->sa", sign * b, means)
+    share_of_total = b.mean(axis=1)
     return LinearForm(
         numerator=float(numerator),
         denominator=float(denominator),
@@ -193,4 +209,8 @@ def design_weighted_form(design: Design, probability: np.ndarray) -> LinearForm:
         robust_shift_centred=means - arm_mean[None, :, :],
         n_regressors=2,
         stratum_weight=None,
+        stratum_contribution=contribution,
+        stratum_contribution_centred=contribution
+        - share_of_total[:, None] * np.array([numerator, denominator]),
+        unit_weight=1.0 / np.stack([1.0 - probability, probability], axis=1),
     )

@@ -47,9 +47,10 @@ def fieller_set(
     Returns
     -------
     ConfidenceSet
-        ``bounded`` when ``qa > 0`` (first-stage F above z^2); ``two_rays`` when ``qa < 0``
-        and the discriminant is positive; ``whole_line`` otherwise (including the
-        degenerate ``qa = 0``, reported conservatively).
+        ``bounded`` when ``qa > 0`` (null-imposed first-stage F above z^2); ``two_rays``
+        ((-inf, left_ray_end] and [right_ray_start, inf)) when ``qa < 0`` and the
+        discriminant is positive; ``whole_line`` otherwise (including the degenerate
+        ``qa = 0``, reported conservatively).
 
     Notes
     -----
@@ -67,5 +68,5 @@ def fieller_set(
         return ConfidenceSet(shape="bounded", lower=low, upper=high)
     if qa < 0 and disc > 0:
         low, high = _stable_roots(qa, qb, qc, disc)
-        return ConfidenceSet(shape="two_rays", lower=low, upper=high)
+        return ConfidenceSet(shape="two_rays", left_ray_end=low, right_ray_start=high)
     return ConfidenceSet(shape="whole_line", lower=None, upper=None)

@@ -20,6 +20,8 @@ __all__ = [
     "Comparison",
     "ConstantEffectTest",
     "NegativeFirstStage",
+    "OfferCountCheck",
+    "OfferCounts",
     "clean",
 ]
 
@@ -48,12 +50,16 @@ class ConfidenceSet:
     """A Fieller / Anderson-Rubin confidence set for the effect."""
 
     shape: str
-    """``bounded`` ([lower, upper]), ``two_rays`` ((-inf, lower] and [upper, inf)) or
-    ``whole_line``."""
-    lower: float | None
-    """Lower end of the interval, or the end of the left ray."""
-    upper: float | None
-    """Upper end of the interval, or the start of the right ray."""
+    """``bounded`` ([lower, upper]), ``two_rays`` ((-inf, left_ray_end] and
+    [right_ray_start, inf)) or ``whole_line``."""
+    lower: float | None = None
+    """Lower end of a bounded set; None for the other shapes."""
+    upper: float | None = None
+    """Upper end of a bounded set; None for the other shapes."""
+    left_ray_end: float | None = None
+    """Two rays: the set contains every value up to and including this one."""
+    right_ray_start: float | None = None
+    """Two rays: the set contains every value from this one on."""
 
     def contains(self, value: float) -> bool:
         """Whether the set contains ``value``."""
@@ -61,7 +67,7 @@ class ConfidenceSet:
             return True
         if self.shape == "bounded":
             return self.lower <= value <= self.upper
-        return value <= self.lower or value >= self.upper
+        return value <= self.left_ray_end or value >= self.right_ray_start
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready form."""
@@ -79,20 +85,30 @@ class Estimate:
     estimate: float | None
     """Effect of take-up; None when the overall first stage is zero."""
     std_error: float | None
-    """Delta-method standard error in the chosen flavour."""
+    """Delta-method standard error in the chosen flavour; never zero (None with a reason)."""
     interval: tuple[float, float] | None
     """Normal confidence interval at `level`."""
     confidence_set: ConfidenceSet
     """Fieller / Anderson-Rubin set at `level`; honest under a weak first stage."""
     first_stage_f: float | None
-    """``(D / se(D))^2`` with the null-imposed variance that the Fieller set uses."""
+    """Wald statistic of the excluded instruments in this estimator's first-stage regression
+    divided by their number, with the run's variance flavour (METHODS.md §4)."""
+    first_stage_f_unadjusted: float | None
+    """The textbook homoskedastic first-stage F (residual variance with divisor n - k)."""
+    first_stage_f_null: float | None
+    """``D^2 / Var(D)`` with the variance imposed under the null that the Fieller set uses;
+    the set is bounded exactly when it exceeds the squared critical value."""
+    first_stage_instruments: int
+    """Excluded instruments of the first stage: 1, or the number of strata (interacted)."""
+    weak_first_stage: bool
+    """First-stage F below 10 (or undefined): read the confidence set, not the interval."""
     itt: float
     """Intention-to-treat effect under this estimator's weighting."""
-    itt_std_error: float
+    itt_std_error: float | None
     """Standard error of `itt`."""
     first_stage: float
     """First stage (complier share) under this estimator's weighting."""
-    first_stage_std_error: float
+    first_stage_std_error: float | None
     """Standard error of `first_stage`."""
     n_units: int
     """Units in the analysis sample."""
@@ -100,14 +116,16 @@ class Estimate:
     """Strata used."""
     variance: str
     """Variance flavour."""
-    assignment: str
-    """Offer assignment assumed by the stratified and cluster flavours."""
-    sampling: str
-    """Stratum sampling assumed by the stratified and cluster flavours."""
+    assignment: str | None
+    """Offer assignment the variance assumes; None for flavours that do not read it."""
+    sampling: str | None
+    """Stratum sampling the variance assumes; None for flavours that do not read it."""
     level: float
     """Confidence level."""
     undefined_reason: str | None = None
     """Why `estimate` is None, when it is."""
+    std_error_reason: str | None = None
+    """Why `std_error` is None while `estimate` is defined."""
     notes: tuple[str, ...] = ()
     """Remarks a reader needs (for example, a conservative variance)."""
 
@@ -200,18 +218,28 @@ class StratumTable:
 
 @dataclass(frozen=True, slots=True)
 class Gap:
-    """Fixed-effects estimate minus the complier-weighted estimate."""
+    """Fixed-effects estimate minus the complier-weighted estimate that is reported."""
 
     estimate: float | None
-    """The difference; None when either estimate is undefined."""
+    """``fixed_effects_estimate - complier_estimate``; None when either is undefined."""
     std_error: float | None
     """Its standard error from the joint covariance of both estimators."""
     interval: tuple[float, float] | None
-    """Normal interval at the comparison's level."""
-    z: float | None
+    """Interval at the comparison's level with the t reference on `df` degrees of freedom."""
+    t: float | None
     """``estimate / std_error``: how many standard errors apart the two are."""
+    df: float | None
+    """Effective degrees of freedom of the t reference (Welch-Satterthwaite)."""
+    p_value: float | None
+    """Two-sided p-value of no difference, from the t reference."""
+    fixed_effects_estimate: float | None
+    """The fixed-effects estimate."""
+    complier_estimate: float | None
+    """The complier-weighted estimate it is compared with."""
+    complier_estimator: str
+    """``weighted`` (design probabilities given) or ``interacted``."""
     reason: str | None = None
-    """Why the standard error or z is None, when it is."""
+    """Why the standard error or t is None, when it is."""
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready form."""
@@ -245,11 +273,68 @@ class ConstantEffectTest:
     df: int
     """Degrees of freedom, strata used minus one."""
     p_value: float | None
-    """Chi-squared upper tail probability of `statistic`."""
-    effect: float | None
-    """The common effect at the minimum."""
+    """Calibrated p-value: share of ``J`` drawn under the fitted null (from the cell moments)
+    at or above `statistic`."""
+    p_value_asymptotic: float | None
+    """Chi-squared upper tail probability of `statistic` (over-rejects with small cells)."""
+    fitted_common_effect: float | None
+    """The common effect at which ``J`` is smallest (the null's fitted effect)."""
+    draws: int
+    """Draws of the simulated null distribution (0 when undefined)."""
+    seed: int
+    """Seed of those draws."""
     reason: str | None
     """Why the test is undefined, when it is."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return _as_dict(self)
+
+
+@dataclass(frozen=True, slots=True)
+class OfferCountCheck:
+    """Realized against design offer counts in one stratum."""
+
+    label: Any
+    """Stratum label."""
+    n: int
+    """Units in the stratum."""
+    n_offered: int
+    """Units offered."""
+    design_probability: float
+    """Design offer probability."""
+    expected_offered: float
+    """``n * design_probability``."""
+    within_rounding: bool
+    """Whether the offered count is less than one unit from `expected_offered`, as block
+    assignment at this probability requires."""
+    p_value: float | None
+    """Exact two-sided binomial p-value of the offered count under independent assignment;
+    None under block assignment."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form."""
+        return _as_dict(self)
+
+
+@dataclass(frozen=True, slots=True)
+class OfferCounts:
+    """How the realized offer counts fit the declared design (design probabilities given)."""
+
+    assignment_declared: str
+    """Assignment the caller declared."""
+    assignment_used: str
+    """Assignment the variance used."""
+    switched: bool
+    """True when block was declared but some offered count is not within rounding of
+    ``n * probability``, so the independent form was used."""
+    realized_shares_used: bool
+    """True under block assignment within rounding: the realized shares are the exact
+    assignment probabilities and replace the rounded design ones."""
+    rows: tuple[OfferCountCheck, ...]
+    """One per stratum of the analysis sample."""
+    rejected: tuple[Any, ...]
+    """Strata whose binomial p-value is below one minus the level."""
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready form."""
@@ -291,6 +376,13 @@ class Comparison:
     agree in large samples)."""
     negative_first_stage: tuple[NegativeFirstStage, ...] = ()
     """Strata whose first stage is negative beyond noise."""
+    offer_counts: OfferCounts | None = None
+    """Realized against design offer counts (only with design probabilities)."""
+    variance_rule: str = "within"
+    """``within`` (cell variances) or ``pairs`` (no cell has two units or clusters: each
+    stratum is one independent draw, METHODS.md §4)."""
+    single_cluster_cells: int = 0
+    """Cells of one cluster that borrowed the pooled cluster variance."""
 
     def get(self, estimator: str) -> Estimate:
         """The estimate of the named estimator.

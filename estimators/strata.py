@@ -6,11 +6,17 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from scipy.stats import t as student_t
 
 from .design import Design
-from .engine import quadratic_form, stratum_effect_variance
+from .engine import (
+    quadratic_form,
+    rule,
+    stratum_effect_variance,
+    stratum_quadratic,
+    within_degrees_of_freedom,
+)
 from .forms import LinearForm
-from .intervals import critical_value, normal_interval
 from .results import Gap, SizeWeighted, StratumRow, StratumTable
 
 __all__ = ["stratum_effects", "stratum_table", "contrast", "size_weighted"]
@@ -56,6 +62,7 @@ def stratum_table(
     """
     effect = stratum_effects(design)
     eff_var = stratum_effect_variance(design, np.nan_to_num(effect), variance=variance)
+    no_spread = rule(design, variance) == "pairs"
     w_fe, w_late = _implied(fe, design), _implied(late, design)
     with np.errstate(divide="ignore", invalid="ignore"):
         gap = design.itt * (fe.stratum_weight / fe.denominator
@@ -68,6 +75,13 @@ def stratum_table(
     rows = []
     for k, label in enumerate(design.labels):
         undefined = not math.isfinite(effect_l[k])
+        if undefined:
+            why = "first stage is zero in this stratum"
+        elif no_spread:
+            why = "no within-stratum variance: an arm has one unit (or cluster) per cell"
+        else:
+            why = None
+        se = None if undefined or not math.isfinite(var_l[k]) else math.sqrt(var_l[k])
         rows.append(
             StratumRow(
                 label=label,
@@ -82,8 +96,8 @@ def stratum_table(
                 itt=itt[k],
                 first_stage=fs[k],
                 effect=None if undefined else effect_l[k],
-                effect_std_error=None if undefined else math.sqrt(var_l[k]),
-                effect_reason="first stage is zero in this stratum" if undefined else None,
+                effect_std_error=se,
+                effect_reason=why,
                 weight_fixed_effects=_float(w_fe_l[k]),
                 weight_complier=_float(w_late_l[k]),
                 always_takers=mean_d[k][0],
@@ -103,20 +117,23 @@ def contrast(
     design: Design,
     fe: LinearForm,
     late: LinearForm,
+    complier_estimator: str,
     *,
     variance: str,
     assignment: str,
     sampling: str,
     level: float,
 ) -> Gap:
-    """Fixed effects minus complier-weighted, with the standard error of the difference.
+    """Fixed effects minus the reported complier-weighted estimate, with its t interval.
 
     Parameters
     ----------
     design : Design
         The analysis sample.
     fe, late : LinearForm
-        The two estimators.
+        The fixed-effects form and the complier-weighted form that is reported.
+    complier_estimator : str
+        Name of the complier-weighted estimator (``weighted`` or ``interacted``).
     variance, assignment, sampling : str
         Flavour, as in `fit`.
     level : float
@@ -132,33 +149,48 @@ def contrast(
     -----
     The difference is linear in the four quantities (N_FE, D_FE, N, D) to first order; its
     variance is the engine's quadratic form for that one combination, projected cell by cell
-    so nearly equal estimators lose no precision.
+    so nearly equal estimators lose no precision. The interval uses Student's t on the
+    Welch-Satterthwaite degrees of freedom of that variance (`within_degrees_of_freedom`):
+    strata with few offered or few not-offered units carry most of the difference's noise,
+    and their variances rest on few degrees of freedom, so a normal reference under-covers.
     """
+    base = {"complier_estimator": complier_estimator, "fixed_effects_estimate": None,
+            "complier_estimate": None}
     if fe.denominator == 0 or late.denominator == 0:
-        return Gap(estimate=None, std_error=None, interval=None, z=None,
-                   reason="an overall first stage is zero")
+        return Gap(estimate=None, std_error=None, interval=None, t=None, df=None,
+                   p_value=None, reason="an overall first stage is zero", **base)
     t_fe = fe.numerator / fe.denominator
     t_late = late.numerator / late.denominator
-    if np.allclose(_implied(fe, design), _implied(late, design), rtol=0.0, atol=1e-12):
-        return Gap(estimate=t_fe - t_late, std_error=None, interval=None, z=None,
-                   reason="fixed-effects and complier weights coincide (equal offer shares or "
-                   "one stratum): the two estimators are the same")
-    projection = np.array([[1.0, -t_fe], [-1.0, t_late]]) / np.array(
-        [[fe.denominator], [late.denominator]]
-    )
-    var = float(
-        quadratic_form(design, [fe, late], projection[..., None], variance=variance,
-                       assignment=assignment, sampling=sampling)[0, 0]
-    )
-    var = max(var, 0.0)
     estimate = t_fe - t_late
+    base.update(fixed_effects_estimate=t_fe, complier_estimate=t_late)
+    same = late.stratum_weight is not None and np.allclose(
+        _implied(fe, design), _implied(late, design), rtol=0.0, atol=1e-12)
+    if same:
+        return Gap(estimate=estimate, std_error=None, interval=None, t=None, df=None,
+                   p_value=None, reason="fixed-effects and complier weights coincide (equal "
+                   "offer shares or one stratum): the two estimators are the same", **base)
+    projection = (np.array([[1.0, -t_fe], [-1.0, t_late]])
+                  / np.array([[fe.denominator], [late.denominator]]))[..., None]
+    options = {"variance": variance, "assignment": assignment, "sampling": sampling}
+    var = float(quadratic_form(design, [fe, late], projection, **options)[0, 0])
+    if not math.isfinite(var) or var <= 0.0:
+        return Gap(estimate=estimate, std_error=None, interval=None, t=None, df=None,
+                   p_value=None, reason="the difference has no estimated sampling variance "
+                   "in this flavour", **base)
     se = math.sqrt(var)
+    df = within_degrees_of_freedom(design, [fe, late], projection, variance=variance,
+                                   total=var)
+    dist = student_t(df) if df is not None else student_t(np.inf)
+    half = float(dist.ppf(0.5 + level / 2.0)) * se
     return Gap(
         estimate=estimate,
         std_error=se,
-        interval=normal_interval(estimate, se, critical_value(level)),
-        z=estimate / se if se > 0 else None,
-        reason=None if se > 0 else "the difference has no sampling variance",
+        interval=(estimate - half, estimate + half),
+        t=estimate / se,
+        df=df,
+        p_value=float(2.0 * dist.sf(abs(estimate / se))),
+        reason=None,
+        **base,
     )
 
 
@@ -190,10 +222,15 @@ def size_weighted(design: Design, *, variance: str, sampling: str) -> SizeWeight
     effect = stratum_effects(design)
     q = design.n_stratum / design.n_units
     estimate = float(q @ effect)
-    var = float(q**2 @ stratum_effect_variance(design, effect, variance=variance))
+    eff_var = stratum_effect_variance(design, effect, variance=variance)
+    if not np.isfinite(eff_var).all():
+        return SizeWeighted(estimate=float(q @ effect), std_error=None, fragile=True,
+                            reason="stratum effects have no within-stratum variance here")
+    var = float(q**2 @ eff_var)
     if sampling == "random":
         var += float(q @ (effect - estimate) ** 2) / design.n_units
-    fs_se = np.sqrt((design.cov[..., 1, 1] / design.n).sum(axis=1))
+    unit = np.tile([0.0, 1.0], (len(design.labels), 1))
+    fs_se = np.sqrt(stratum_quadratic(design, unit, variance=variance))
     weak = np.abs(fs) < 2.0 * fs_se
     reason = None
     if weak.any():

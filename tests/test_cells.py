@@ -503,9 +503,7 @@ def test_duplicating_each_unit_into_a_two_unit_cluster_changes_neither_estimate_
 
 
 @pytest.mark.parametrize("estimator", ESTIMATORS)
-def test_singleton_clusters_in_equal_cells_scale_the_stratified_variance_by_g_over_g_minus_one(
-    estimator,
-):
+def test_singleton_clusters_give_exactly_the_stratified_variance(estimator):
     rng = np.random.default_rng(SEED + 2)
     m, strata = 9, 4
     s = np.repeat(np.arange(strata), 2 * m)
@@ -517,11 +515,9 @@ def test_singleton_clusters_in_equal_cells_scale_the_stratified_variance_by_g_ov
     clustered = fit(
         build_cells(y, d, z, s, cluster=np.arange(s.size)), variance="cluster", **options
     )
-    g = s.size
-    # from METHODS.md §4: with singleton clusters Q_sz is the within-cell SS = (m-1) S^2_sz, so
-    # kappa^2 Q G/(G-1) = (b^2/m^2)(m-1) S^2 G/(G-1) against the stratified b^2 S^2/m
-    ratio = (m - 1) * g / (m * (g - 1))
-    assert clustered.std_error**2 == pytest.approx(stratified.std_error**2 * ratio, rel=1e-10)
+    # source: METHODS.md §4, per-cell scale G_sz/(G_sz - 1): with singleton clusters
+    # Q_sz = (m-1) S^2_sz and G_sz = m, so Q_sz G_sz/(G_sz-1) = m S^2_sz, the stratified n_sz S^2
+    assert clustered.std_error == pytest.approx(stratified.std_error, rel=1e-12)
 
 
 def test_a_cluster_spanning_two_cells_is_rejected_with_its_id_and_index():

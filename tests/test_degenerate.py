@@ -167,7 +167,12 @@ def test_zero_overall_first_stage_leaves_the_estimate_undefined_with_a_reason(fl
         "estimate": None,
         "std_error": None,
         "interval": None,
-        "z": None,
+        "t": None,
+        "df": None,
+        "p_value": None,
+        "fixed_effects_estimate": None,
+        "complier_estimate": None,
+        "complier_estimator": "interacted",
         "reason": "an overall first stage is zero",
     }
     assert data["size_weighted"]["estimate"] is None
@@ -194,7 +199,7 @@ def test_zero_overall_first_stage_with_a_clear_itt_gives_two_rays(estimator):
     assert result.estimate is None
     # source: METHODS.md §4, qa < 0 and N^2 > z^2 A make qc > 0 and disc = qb^2 - qa qc > 0
     assert result.confidence_set.shape == "two_rays"
-    assert result.confidence_set.lower < result.confidence_set.upper
+    assert result.confidence_set.left_ray_end < result.confidence_set.right_ray_start
 
 
 @pytest.mark.parametrize("estimator", ESTIMATORS)
@@ -203,7 +208,8 @@ def test_zero_overall_first_stage_without_an_itt_gives_the_whole_line(estimator)
     data = assert_no_silent_nan(result)
     assert result.estimate is None
     # source: METHODS.md §4, N = 0 gives disc = z^4 (B^2 - A C) <= 0 (Cauchy-Schwarz)
-    assert data["confidence_set"] == {"shape": "whole_line", "lower": None, "upper": None}
+    assert data["confidence_set"] == {"shape": "whole_line", "lower": None, "upper": None,
+                                      "left_ray_end": None, "right_ray_start": None}
 
 
 # ---------------------------------------------------------------- FS_s = 0 in one stratum

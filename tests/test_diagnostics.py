@@ -31,7 +31,7 @@ def test_constant_effect_statistic_is_the_minimum_over_a_fine_grid():
     var_y = cells.ss_outcome / (n - 1) / n
     var_yd = cells.ss_cross / (n - 1) / n
     var_d = cells.ss_take_up / (n - 1) / n
-    grid = np.linspace(test.effect - 1.0, test.effect + 1.0, 20001)
+    grid = np.linspace(test.fitted_common_effect - 1.0, test.fitted_common_effect + 1.0, 20001)
     itt = np.array([r.itt for r in rows])
     fs = np.array([r.first_stage for r in rows])
     gap = itt[None, :] - grid[:, None] * fs[None, :]

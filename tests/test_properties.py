@@ -103,19 +103,12 @@ def comparable(result: dict[str, Any]) -> dict[str, Any]:
     scale = max(e["std_error"] for e in result["estimates"]) ** 2
     out = {k: v for k, v in result.items() if k != "gap"}
     out["variance_floor"] = scale
-    if gap["std_error"] is None:  # weights coincide: no spread to compare
-        out["gap"] = {"estimate": gap["estimate"], "variance": 0.0, "half_width_sq": 0.0,
-                      "reason": gap["reason"]}
-        return out
-    low, high = gap["interval"]
-    out["gap"] = {
-        "estimate": gap["estimate"],
-        "variance": gap["std_error"] ** 2,
-        "centre": (low + high) / 2,
-        "half_width_sq": ((high - low) / 2) ** 2,
-    }
-    if gap["std_error"] ** 2 > 1e-6 * scale:
-        out["gap"]["z"] = gap["z"]
+    variance = (gap["std_error"] or 0.0) ** 2
+    half = 0.0 if gap["interval"] is None else (gap["interval"][1] - gap["interval"][0]) / 2
+    out["gap"] = {"estimate": gap["estimate"], "variance": variance, "half_width_sq": half**2}
+    if variance > 1e-6 * scale:  # t, its degrees of freedom and p only when not noise
+        out["gap"].update(t=gap["t"], df=gap["df"], p_value=gap["p_value"],
+                          centre=sum(gap["interval"]) / 2)
     return out
 
 
@@ -128,9 +121,10 @@ def assert_fits_close(
     got.pop("variance_floor")
     got_gap, want_gap = got.pop("gap"), want.pop("gap")
     assert_close(got, want, floor=floor)
-    if ("z" in got_gap) != ("z" in want_gap):
-        got_gap.pop("z", None)
-        want_gap.pop("z", None)
+    if ("t" in got_gap) != ("t" in want_gap):
+        for key in ("t", "df", "p_value", "centre"):
+            got_gap.pop(key, None)
+            want_gap.pop(key, None)
     for key in ("variance", "half_width_sq"):
         assert_close(got_gap.pop(key), want_gap.pop(key), floor=variance_floor, path=key)
     assert_close(got_gap, want_gap, floor=floor, path="gap")
@@ -210,9 +204,12 @@ def affine_image(result: dict[str, Any], a: float, b: float) -> dict[str, Any]:
     estimates = []
     for est in result["estimates"]:
         conf = est["confidence_set"]
-        if conf["shape"] != "whole_line":
+        if conf["shape"] == "bounded":
             low, high = _ends([conf["lower"], conf["upper"]], b)
             conf = {**conf, "lower": low, "upper": high}
+        elif conf["shape"] == "two_rays":
+            low, high = _ends([conf["left_ray_end"], conf["right_ray_start"]], b)
+            conf = {**conf, "left_ray_end": low, "right_ray_start": high}
         estimates.append(
             {
                 **est,
@@ -221,7 +218,7 @@ def affine_image(result: dict[str, Any], a: float, b: float) -> dict[str, Any]:
                 "interval": _ends(est["interval"], b),
                 "confidence_set": conf,
                 "itt": b * est["itt"],
-                "itt_std_error": abs(b) * est["itt_std_error"],
+                "itt_std_error": _scaled(est["itt_std_error"], abs(b)),
             }
         )
     out["estimates"] = estimates
@@ -240,13 +237,19 @@ def affine_image(result: dict[str, Any], a: float, b: float) -> dict[str, Any]:
         )
     out["strata"] = {**result["strata"], "rows": rows}
     test = result["constant_effect"]
-    out["constant_effect"] = {**test, "effect": _scaled(test["effect"], b)}
+    out["constant_effect"] = {**test, "fitted_common_effect": _scaled(
+        test["fitted_common_effect"], b)}
     gap = result["gap"]
     out["gap"] = {
         "estimate": _scaled(gap["estimate"], b),
         "std_error": _scaled(gap["std_error"], abs(b)),
         "interval": _ends(gap["interval"], b),
-        "z": _scaled(gap["z"], math.copysign(1.0, b)),
+        "t": _scaled(gap["t"], math.copysign(1.0, b)),
+        "df": gap["df"],
+        "p_value": gap["p_value"],
+        "fixed_effects_estimate": _scaled(gap["fixed_effects_estimate"], b),
+        "complier_estimate": _scaled(gap["complier_estimate"], b),
+        "complier_estimator": gap["complier_estimator"],
         "reason": gap["reason"],
     }
     size = result["size_weighted"]

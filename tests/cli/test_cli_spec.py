@@ -8,7 +8,8 @@ import pytest
 from cli_support import MINIMAL_SPEC, Study, assert_clean_failure
 
 from strativ.cli.errors import SpecError
-from strativ.cli.spec import ESTIMATORS, FORMATS, load_spec
+from strativ.cli.spec import FORMATS, load_spec
+from strativ.estimators.options import ESTIMATORS
 
 
 def _spec(study: Study, text: str):
@@ -144,9 +145,10 @@ def test_cluster_variance_needs_a_cluster_column(study: Study) -> None:
         _spec(study, MINIMAL_SPEC + "inference:\n  variance: cluster\n")
 
 
-def test_offer_probability_mapping_values_must_be_probabilities(study: Study) -> None:
-    text = MINIMAL_SPEC + "design:\n  offer_probability:\n    north: 0.3\n    south: 1.5\n"
-    with pytest.raises(SpecError, match=r"line 10: offer probability of stratum 'south' is 1.5"):
+def test_offer_probability_mapping_values_must_be_numbers(study: Study) -> None:
+    text = MINIMAL_SPEC + "design:\n  offer_probability:\n    north: 0.3\n    south: high\n"
+    with pytest.raises(SpecError, match=r"line 10: offer probability of stratum 'south' is "
+                       r"str 'high'; it must be a number"):
         _spec(study, text)
 
 
@@ -181,3 +183,25 @@ def test_missing_spec_file_is_a_usage_error(tmp_path: Path, invoke) -> None:
     # source: issue 4 exit codes (2 = usage error), typer's path check
     assert result.exit_code == 2
     assert "Invalid value for 'SPEC'" in result.output and "Traceback" not in result.output
+
+
+def test_a_mapping_probability_outside_0_1_is_refused_by_the_core_at_its_spec_line(
+        study: Study, invoke) -> None:
+    study.write_spec(MINIMAL_SPEC + "design:\n  offer_probability:\n    north: 0.3\n"
+                     "    south: 1.5\n    east: 0.7\n    west: 0.5\n")
+    for command in ("check", "run"):
+        result = invoke(command, study.spec, *(["--out", study.out] if command == "run" else []))
+        # source: spec text above, 'south: 1.5' is on line 10; the range rule is the core's
+        assert_clean_failure(result, 2, "spec.yaml, line 10: design offer probability refused: "
+                             "stratum 'south' has probability 1.5")
+    assert not study.out.exists()
+
+
+def test_clusters_with_independent_offers_are_refused_under_the_cluster_form(
+        study: Study) -> None:
+    text = MINIMAL_SPEC + "  cluster: unit\ndesign:\n  assignment: independent\n"
+    # source: issue 7, a cluster column turns 'stratified' into the cluster form, which
+    # assumes whole clusters offered as blocks; spec text above, 'assignment' on line 9
+    with pytest.raises(SpecError, match=r"line 9: assignment 'independent' cannot be combined "
+                       r"with the cluster column 'unit' under variance 'stratified'"):
+        _spec(study, text)
