@@ -299,7 +299,8 @@ def stratum_quadratic(design: Design, vector: np.ndarray, *, variance: str) -> n
     Returns
     -------
     numpy.ndarray
-        (K,) variances; NaN under the ``pairs`` rule (no within-stratum variance exists).
+        (K,) variances; NaN under the ``pairs`` rule or where the variance is zero (no
+        within-stratum variance exists).
     """
     if rule(design, variance) == "pairs":
         return np.full(len(design.labels), np.nan)
@@ -309,7 +310,9 @@ def stratum_quadratic(design: Design, vector: np.ndarray, *, variance: str) -> n
     out = (spread / design.n**2).sum(axis=1)
     if variance == "robust_scaled":
         out = out * robust_scale(design, 2 * len(design.labels))
-    return np.maximum(out, 0.0)
+    # zero: the stratum's regression fits its cells exactly (a cell of one unit in each
+    # arm under the robust sandwich, or no spread at all): no variance, never a zero one
+    return np.where(out > 0.0, out, np.nan)
 
 
 def stratum_effect_variance(design: Design, effect: np.ndarray, *, variance: str) -> np.ndarray:

@@ -82,6 +82,9 @@ def stratum_table(
         else:
             why = None
         se = None if undefined or not math.isfinite(var_l[k]) else math.sqrt(var_l[k])
+        if se is None and why is None:
+            why = "no within-stratum variance in this flavour (the stratum's cells are fitted "\
+                "exactly)"
         rows.append(
             StratumRow(
                 label=label,
