@@ -221,7 +221,7 @@ def constant_effect_test(design: Design, *, theta: float | None, scale: float | 
     scale : float or None
         A standard error setting the search width (None: from the stratum effects).
     draws : int, default=NULL_DRAWS
-        Draws of the simulated null distribution.
+        Draws of the simulated null distribution; 0 keeps the chi-squared reference.
     seed : int, default=NULL_SEED
         Their seed.
 
@@ -265,7 +265,7 @@ def constant_effect_test(design: Design, *, theta: float | None, scale: float | 
         )
     asymptotic = float(chi2.sf(statistic, k - 1))
     p_value, used = asymptotic, 0
-    if _needs_calibration(design, cell_degrees_of_freedom(design, _flavour(design))):
+    if draws and _needs_calibration(design, cell_degrees_of_freedom(design, _flavour(design))):
         simulated = _null_statistics(design, effect, draws, seed)
         p_value, used = float((1 + np.sum(simulated >= statistic)) / (draws + 1)), draws
     return ConstantEffectTest(

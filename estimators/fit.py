@@ -12,7 +12,7 @@ from scipy.stats import t as student_t
 
 from .cells import CellTable
 from .design import Design, analysis_design
-from .diagnostics import constant_effect_test, negative_first_stages
+from .diagnostics import NULL_DRAWS, constant_effect_test, negative_first_stages
 from .engine import covariance, ratio_variance, rule
 from .errors import InputError
 from .first_stage import first_stage_statistics
@@ -320,6 +320,7 @@ def fit_all(
     sampling: str = "random",
     level: float = 0.95,
     offer_probability: Mapping[Any, float] | None = None,
+    constant_effect_draws: int = NULL_DRAWS,
 ) -> Comparison:
     """Fit several estimators on one analysis sample, with the contrast and stratum table.
 
@@ -331,6 +332,9 @@ def fit_all(
         Which estimators, in the order to report them; no repeats.
     variance, assignment, sampling, level, offer_probability
         As in `fit`.
+    constant_effect_draws : int, default=NULL_DRAWS
+        Draws of the simulated null distribution that calibrates the constant-effect test;
+        0 keeps the chi-squared reference (for loops that do not read the test).
 
     Returns
     -------
@@ -355,6 +359,9 @@ def fit_all(
     names = [_choice(e, ESTIMATORS, "estimators") for e in estimators]
     if not names or len(set(names)) != len(names):
         raise InputError("estimators", f"expected distinct estimator names, got {list(names)}.")
+    if not isinstance(constant_effect_draws, int) or constant_effect_draws < 0:
+        raise InputError("constant_effect_draws",
+                         f"expected a whole number of draws >= 0, got {constant_effect_draws!r}.")
     design, variance, assignment, probability, counts = _prepare(
         cells, variance, assignment, sampling, level, offer_probability)
     options = {"variance": variance, "assignment": assignment, "sampling": sampling}
@@ -412,7 +419,8 @@ def fit_all(
         gap=contrast(design, fe, reference, complier_name, level=level, **options),
         size_weighted=size_weighted(design, variance=variance, sampling=sampling),
         notes=tuple(notes),
-        constant_effect=constant_effect_test(design, theta=pooled, scale=spread),
+        constant_effect=constant_effect_test(design, theta=pooled, scale=spread,
+                                             draws=constant_effect_draws),
         negative_first_stage=negative_first_stages(design, level=level),
         offer_counts=counts,
         variance_rule=variance_rule,

@@ -321,7 +321,8 @@ def coverage_study(
         done += len(batch)
         for outcome, take_up, offer, stratum in batch.rows():
             cells = build_cells(outcome, take_up, offer, stratum)
-            comparison = fit_all(cells, assignment=assignment, sampling=sampling)
+            comparison = fit_all(cells, assignment=assignment, sampling=sampling,
+                                 constant_effect_draws=0)
             excluded += len(comparison.strata.excluded)
             for est in comparison.estimates:
                 covered[est.estimator] += _covers(est.interval, truth[est.estimator])

@@ -49,7 +49,7 @@ def _replications(assignment: str, sampling: str) -> dict[str, np.ndarray]:
     out["weight_fixed_effects"], out["weight_complier"] = [], []
     for outcome, take_up, offer, stratum in draws.rows():
         comparison = fit_all(build_cells(outcome, take_up, offer, stratum),
-                             assignment=assignment, sampling=sampling)
+                             assignment=assignment, sampling=sampling, constant_effect_draws=0)
         for est in comparison.estimates:
             out[est.estimator].append(est.estimate)
         out["weight_fixed_effects"].append([r.weight_fixed_effects for r in comparison.strata.rows])

@@ -45,7 +45,8 @@ def _coverage() -> dict[str, dict[str, float]]:
     f_stats: dict[str, list[float]] = {name: [] for name in ESTIMATORS}
     for outcome, take_up, offer, stratum in draws.rows():
         comparison = fit_all(build_cells(outcome, take_up, offer, stratum),
-                             estimators=ESTIMATORS, assignment="block", sampling="fixed")
+                             estimators=ESTIMATORS, assignment="block", sampling="fixed",
+                             constant_effect_draws=0)
         for est in comparison.estimates:
             low, high = est.interval
             normal[est.estimator] += low <= TRUTH <= high
