@@ -3,11 +3,9 @@
 
 from __future__ import annotations
 
-from dataclasses import replace
-
 import numpy as np
 from scipy.optimize import brentq, minimize_scalar
-from scipy.stats import chi2, norm
+from scipy.special import chdtrc, ndtri
 
 from .design import Design
 from .engine import cell_degrees_of_freedom, rule, within_moments
@@ -18,7 +16,10 @@ __all__ = ["NULL_DRAWS", "NULL_SEED", "constant_effect_test", "negative_first_st
 GRID_QUANTILES = np.linspace(0.0, 1.0, 41)
 """Quantiles of the stratum effects added to the search grid when there are many strata."""
 
-NULL_DRAWS = 399
+LOCAL_MINIMA = 5
+"""Local minima of J on the search grid that are refined."""
+
+NULL_DRAWS = 3999
 """Draws of the simulated null distribution of the constant-effect statistic."""
 
 NULL_SEED = 20261202
@@ -77,125 +78,64 @@ def _minimum(design: Design, spread: np.ndarray, theta: float | None, scale: flo
     grid = np.linspace(centre - 10.0 * width, centre + 10.0 * width, 161)
     if effects.size:  # every stratum's own effect is a local candidate; quantiles beyond 40
         candidates = effects if effects.size <= 40 else np.quantile(effects, GRID_QUANTILES)
-        grid = np.concatenate([grid, candidates])
-    grid.sort()
+        span = np.append(effects, centre)
+        grid = np.concatenate([grid, candidates, np.linspace(span.min(), span.max(), 201)])
+    grid = np.unique(grid)
     with np.errstate(divide="ignore", invalid="ignore"):
         values = np.nan_to_num(value(grid), nan=np.inf)
-    best = int(np.argmin(values))
-    low, high = grid[max(best - 1, 0)], grid[min(best + 1, grid.size - 1)]
-    t_best, j_best = float(grid[best]), float(values[best])
-    if high > low and slope(low) < 0.0 < slope(high):
-        # the derivative's root pins the minimum to rounding; a value search would stop
-        # at the square root of the machine precision
-        t_root = brentq(slope, low, high, xtol=1e-15, rtol=4 * np.finfo(float).eps)
-        if float(value(t_root)) <= j_best:
-            t_best, j_best = float(t_root), float(value(t_root))
-    elif high > low:
-        found = minimize_scalar(lambda t: float(value(t)), bounds=(low, high),
-                                method="bounded")
-        if found.fun < j_best:
-            t_best, j_best = float(found.x), float(found.fun)
+    # J can have several local minima: refine the lowest few, keep the smallest
+    padded = np.concatenate([[np.inf], values, [np.inf]])
+    local = np.flatnonzero((values <= padded[:-2]) & (values <= padded[2:]))
+    local = local[np.argsort(values[local])][:LOCAL_MINIMA]
+    t_best, j_best = float(grid[local[0]]), float(values[local[0]])
+    for best in local:
+        low, high = grid[max(best - 1, 0)], grid[min(best + 1, grid.size - 1)]
+        if high > low and slope(low) < 0.0 < slope(high):
+            # the derivative's root pins the minimum to rounding; a value search would stop
+            # at the square root of the machine precision
+            t_root = brentq(slope, low, high, xtol=1e-15, rtol=4 * np.finfo(float).eps)
+            t_found, j_found = float(t_root), float(value(t_root))
+        elif high > low:
+            found = minimize_scalar(lambda t: float(value(t)), bounds=(low, high),
+                                    method="bounded")
+            t_found, j_found = float(found.x), float(found.fun)
+        else:
+            continue
+        if j_found < j_best:
+            t_best, j_best = t_found, j_found
     return t_best * unit, j_best
 
 
-def _cholesky(cov: np.ndarray) -> np.ndarray:
-    """Lower factor of each 2x2 positive semi-definite matrix (zero rows allowed)."""
-    a, b, c = cov[..., 0, 0], cov[..., 0, 1], cov[..., 1, 1]
-    l11 = np.sqrt(np.maximum(a, 0.0))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        l21 = np.where(l11 > 0, b / np.where(l11 > 0, l11, 1.0), 0.0)
-    l22 = np.sqrt(np.maximum(c - l21 * l21, 0.0))
-    out = np.zeros(cov.shape)
-    out[..., 0, 0], out[..., 1, 0], out[..., 1, 1] = l11, l21, l22
-    return out
-
-
 def _null_statistics(design: Design, effect: float, draws: int, seed: int) -> np.ndarray:
-    """J drawn under the fitted null from the cell moments (METHODS.md §5).
+    """``J`` drawn under the fitted null, with the noise of the variances inside it.
 
-    Each cell's mean of (y, d) is normal around ``(effect * d_bar, d_bar)`` shifted so that
-    every stratum satisfies the null, with the cell's estimated covariance; each cell's
-    covariance estimate is Wishart on its degrees of freedom (Bartlett decomposition), so the
-    noise of the variances inside J — what makes the chi-squared reference over-reject in
-    small cells — is reproduced. Vectorised over draws; the minimum over the common effect
-    comes from Newton steps started at ``effect``.
+    With known variances, ``J`` at the fitted common effect is the squared length of the
+    standardized stratum contrasts ``t_s = Delta_s / sd_s`` after projecting out the one
+    direction ``u ~ FS_s / sd_s`` that the common effect absorbs: chi-squared on K - 1.
+    Each ``sd_s`` is estimated, on Welch-Satterthwaite degrees of freedom ``nu_s`` from its
+    two cells (``n_sz - 1`` each; ``G_sz - 1`` with clusters), so ``t_s`` is Student t on
+    ``nu_s``: the draws are ``sum_s t_s^2 - (sum_s u_s t_s)^2`` with independent
+    ``t_s ~ t(nu_s)``. Strata get their draws in an order fixed by their data, so labels
+    and row order do not change the p-value.
     """
-    rng = np.random.default_rng(seed)
-    # draws go to strata in an order fixed by their data, not their labels or row order
     order = np.lexsort((np.abs(design.itt), design.first_stage, design.n[:, 1], design.n[:, 0]))
-    design = _reordered(design, order)
-    cell = _cell_variance(design)
-    # J is the same for c*y with any c != 0: draw in units of the outcome's spread (no
-    # overflow) and in one orientation (the same draws for y and -y)
-    unit = float(np.sqrt(cell[..., 0, 0].sum(axis=1).max()))
-    sign = -1.0 if effect < 0 else 1.0
-    cell = cell / np.array([[unit * unit, sign * unit], [sign * unit, 1.0]])
-    effect = abs(effect) / unit
-    dof = cell_degrees_of_freedom(design, _flavour(design))
-    root = _cholesky(cell)
-    l11, l21, l22 = root[..., 0, 0], root[..., 1, 0], root[..., 1, 1]
-    k = len(design.labels)
-    fs = design.first_stage
-    shape = (draws, k, 2)
-    e1, e2 = rng.standard_normal(shape), rng.standard_normal(shape)
-    itt = effect * fs + (l11 * e1).sum(axis=2)
-    first = fs + (l21 * e1 + l22 * e2).sum(axis=2)
-    # Bartlett: L [[sqrt(chi2_nu), 0], [N(0,1), sqrt(chi2_(nu-1))]], squared, over nu
-    nu = np.broadcast_to(dof, shape)
-    top = np.sqrt(rng.chisquare(nu))
-    bottom = np.sqrt(rng.gamma(np.maximum(nu - 1.0, 0.0) / 2.0, 2.0))
-    off = rng.standard_normal(shape)
-    m11, m21, m22 = l11 * top, l21 * top + l22 * off, l22 * bottom
-    a = (m11 * m11 / nu).sum(axis=2)
-    b = (m11 * m21 / nu).sum(axis=2)
-    c = ((m21 * m21 + m22 * m22) / nu).sum(axis=2)
-    return _minimum_by_newton(itt, first, a, b, c, effect)
-
-
-def _minimum_by_newton(itt: np.ndarray, fs: np.ndarray, a: np.ndarray, b: np.ndarray,
-                       c: np.ndarray, start: float, steps: int = 8) -> np.ndarray:
-    """Smallest J per draw (rows), by safeguarded Newton steps from ``start``.
-
-    ``J(t) = sum_s g_s^2 / v_s`` with ``g = ITT - t FS`` and ``v = a - 2 t b + t^2 c``;
-    ``J' = sum (2 g g' v - g^2 v') / v^2`` and ``J'' = sum (2 FS^2 v - 2 c g^2) / v^2 -
-    2 v' f' / v`` per term. A step that does not lower J is halved; the result never exceeds
-    J at ``start``.
-    """
-    tiny = np.finfo(float).tiny
-
-    def value(t: np.ndarray) -> np.ndarray:
-        g = itt - t[:, None] * fs
-        v = np.maximum(a - 2.0 * t[:, None] * b + t[:, None] ** 2 * c, tiny)
-        return (g * g / v).sum(axis=1)
-
-    t = np.full(itt.shape[0], float(start))
-    best = value(t)
-    for _ in range(steps):
-        g = itt - t[:, None] * fs
-        v = np.maximum(a - 2.0 * t[:, None] * b + t[:, None] ** 2 * c, tiny)
-        dv = 2.0 * (t[:, None] * c - b)
-        first = (-2.0 * fs * g * v - g * g * dv) / (v * v)
-        second = (2.0 * fs * fs * v - 2.0 * c * g * g) / (v * v) - 2.0 * dv * first / v
-        slope, curve = first.sum(axis=1), second.sum(axis=1)
-        step = np.where(curve > 0, slope / np.where(curve > 0, curve, 1.0), 0.0)
-        for _ in range(3):
-            trial = value(t - step)
-            better = trial < best
-            t = np.where(better, t - step, t)
-            best = np.where(better, trial, best)
-            step = np.where(better, 0.0, step / 2.0)
-    return best
-
-
-def _reordered(design: Design, order: np.ndarray) -> Design:
-    """The design with its strata in ``order`` (only the arrays the null draws read)."""
-    changed = {}
-    for name in ("n", "mean_outcome", "mean_take_up", "ss", "cov", "cluster_q",
-                 "cluster_within", "cluster_count", "cluster_size_sq", "cluster_size_dev"):
-        value = getattr(design, name)
-        if value is not None:
-            changed[name] = value[order]
-    return replace(design, labels=tuple(design.labels[k] for k in order), **changed)
+    cell = _cell_variance(design)[order]
+    dof = cell_degrees_of_freedom(design, _flavour(design))[order]
+    vec = np.array([1.0, -effect])
+    part = np.einsum("a,szab,b->sz", vec, cell, vec)
+    spread = part.sum(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = part / spread[:, None]  # shares of each stratum's variance: no overflow
+        nu = 1.0 / (share**2 / dof).sum(axis=1)
+        direction = design.first_stage[order] / np.sqrt(spread)
+    nu = np.clip(np.nan_to_num(nu, nan=1e6, posinf=1e6), 1.0, 1e6)
+    norm = float(np.sqrt((direction**2).sum()))
+    rng = np.random.default_rng(seed)
+    t = rng.standard_t(nu, size=(draws, nu.size))
+    out = (t * t).sum(axis=1)
+    if norm > 0:
+        out -= (t @ (direction / norm)) ** 2
+    return out
 
 
 def _needs_calibration(design: Design, dof: np.ndarray) -> bool:
@@ -263,11 +203,12 @@ def constant_effect_test(design: Design, *, theta: float | None, scale: float | 
             None, k - 1, None, None, None, 0, seed,
             "the outcome is an exact linear function of take-up within a stratum's cells",
         )
-    asymptotic = float(chi2.sf(statistic, k - 1))
+    asymptotic = float(chdtrc(k - 1, statistic))
     p_value, used = asymptotic, 0
     if draws and _needs_calibration(design, cell_degrees_of_freedom(design, _flavour(design))):
         simulated = _null_statistics(design, effect, draws, seed)
-        p_value, used = float((1 + np.sum(simulated >= statistic)) / (draws + 1)), draws
+        p_value = float((1 + np.sum(simulated >= statistic)) / (draws + 1))
+        used = draws
     return ConstantEffectTest(
         statistic=statistic,
         df=k - 1,
@@ -300,7 +241,7 @@ def negative_first_stages(design: Design, *, level: float) -> tuple[NegativeFirs
     if rule(design, _flavour(design)) == "pairs":
         return ()  # no within-stratum variance to judge noise by
     se = np.sqrt(_within_spread(design)[:, 1, 1])
-    z = norm.ppf(0.5 + level / 2.0)
+    z = ndtri(0.5 + level / 2.0)
     out = []
     for k, label in enumerate(design.labels):
         if se[k] > 0 and fs[k] / se[k] < -z:

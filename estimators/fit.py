@@ -8,7 +8,7 @@ from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
-from scipy.stats import t as student_t
+from scipy.special import stdtrit
 
 from .cells import CellTable
 from .design import Design, analysis_design
@@ -134,7 +134,7 @@ def _critical(design: Design, variance: str, level: float) -> float:
     where the variance rests on K stratum draws."""
     k = len(design.labels)
     if rule(design, variance) == "pairs" and k >= 2:
-        return float(student_t.ppf(0.5 + level / 2.0, k - 1))
+        return float(stdtrit(k - 1, 0.5 + level / 2.0))
     return critical_value(level)
 
 
@@ -409,17 +409,13 @@ def fit_all(
             "freedom"
         )
     pooled = late.numerator / late.denominator if late.denominator != 0 else None
-    spread = None
-    for estimate in estimates:
-        if estimate.estimator != "fixed_effects" and estimate.std_error:
-            spread = estimate.std_error
     return Comparison(
         estimates=estimates,
         strata=stratum_table(design, fe, late, variance=variance),
         gap=contrast(design, fe, reference, complier_name, level=level, **options),
         size_weighted=size_weighted(design, variance=variance, sampling=sampling),
         notes=tuple(notes),
-        constant_effect=constant_effect_test(design, theta=pooled, scale=spread,
+        constant_effect=constant_effect_test(design, theta=pooled, scale=None,
                                              draws=constant_effect_draws),
         negative_first_stage=negative_first_stages(design, level=level),
         offer_counts=counts,

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 
-from scipy.stats import norm
+from scipy.special import ndtri
 
 from .results import ConfidenceSet
 
@@ -13,7 +13,7 @@ __all__ = ["critical_value", "normal_interval", "fieller_set"]
 
 def critical_value(level: float) -> float:
     """Two-sided standard normal critical value for a confidence level in (0, 1)."""
-    return float(norm.ppf(0.5 + level / 2.0))
+    return float(ndtri(0.5 + level / 2.0))
 
 
 def normal_interval(estimate: float, std_error: float, z: float) -> tuple[float, float]:

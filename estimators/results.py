@@ -273,8 +273,9 @@ class ConstantEffectTest:
     df: int
     """Degrees of freedom, strata used minus one."""
     p_value: float | None
-    """Calibrated p-value: share of ``J`` drawn under the fitted null (from the cell moments)
-    at or above `statistic`."""
+    """Calibrated p-value: share of ``J`` drawn under the fitted null, with the noise of the
+    variances inside it, at or above `statistic` (the chi-squared one when every variance
+    rests on many degrees of freedom; then `draws` is 0)."""
     p_value_asymptotic: float | None
     """Chi-squared upper tail probability of `statistic` (over-rejects with small cells)."""
     fitted_common_effect: float | None

@@ -6,7 +6,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.stats import t as student_t
+from scipy.special import stdtr, stdtrit
 
 from .design import Design
 from .engine import (
@@ -183,15 +183,15 @@ def contrast(
     se = math.sqrt(var)
     df = within_degrees_of_freedom(design, [fe, late], projection, variance=variance,
                                    total=var)
-    dist = student_t(df) if df is not None else student_t(np.inf)
-    half = float(dist.ppf(0.5 + level / 2.0)) * se
+    nu = np.inf if df is None else df
+    half = float(stdtrit(nu, 0.5 + level / 2.0)) * se
     return Gap(
         estimate=estimate,
         std_error=se,
         interval=(estimate - half, estimate + half),
         t=estimate / se,
         df=df,
-        p_value=float(2.0 * dist.sf(abs(estimate / se))),
+        p_value=float(2.0 * stdtr(nu, -abs(estimate / se))),
         reason=None,
         **base,
     )

@@ -3,7 +3,7 @@
 Seed 20261204, 1,000 replications per design, 10 strata of 200 units, offer probabilities
 0.15-0.85, block assignment, fixed sizes, two-sided non-compliance with endogenous take-up
 (tests/simulate.py `heterogeneous_lottery`). Under one common effect the statistic is
-chi-squared with K - 1 degrees of freedom (METHODS.md §5).
+chi-squared with K - 1 degrees of freedom (METHODS.md §5); the calibrated p-value is read.
 
 One-sided non-compliance (nobody takes up without an offer), seed 20261210 (cell size c,
 effects e use ``default_rng([SEED_ONE_SIDED, c, e])``): 10 strata with cells of 6 and of 20
