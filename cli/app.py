@@ -10,6 +10,10 @@ traceback reaches the user:
   command-line mistakes reported by the argument parser);
 - 3: data error (missing column, bad codes, missing values, empty or unreadable file);
 - 130: interrupted (Ctrl-C).
+
+This module imports only typer, rich and the error types. Each command imports the spec
+parser, the data loader and the estimators (numpy, pandas, scipy, numba, pyarrow) inside its
+function, so `strativ --help` and `strativ --version` start fast.
 """
 
 from __future__ import annotations
@@ -19,28 +23,17 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from enum import Enum
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
 import typer
-from rich.console import Console
 from rich.text import Text
+from typer.core import TyperCommand
 
-from strativ.estimators.options import DEFAULTS, DESCRIPTIONS
-
-from . import __version__
+from .console import make_console, render_error
 from .errors import EXIT_INTERNAL, CliError, UsageError
-from .loading import load_data
-from .render import make_console, render_check, render_error, render_run, render_warnings
-from .results import check_output_paths, write_outputs
-from .runner import (
-    check_with_core,
-    data_warnings,
-    design_probabilities,
-    run_spec,
-    summarize_design,
-)
-from .spec import DATA_SUFFIXES, load_spec
-from .starter import starter_spec, write_new_file
+
+if TYPE_CHECKING:
+    from rich.console import Console
 
 __all__ = ["app", "main"]
 
@@ -88,6 +81,8 @@ def _boundary() -> Iterator[Console]:
 
 def _version(value: bool) -> None:
     if value:
+        from . import __version__
+
         print(f"strativ {__version__}")
         raise typer.Exit()
 
@@ -105,6 +100,8 @@ def _root(
 
 def _options_help() -> str:
     """The spec's option values with their defaults, from the one option vocabulary."""
+    from strativ.estimators.options import DEFAULTS, DESCRIPTIONS
+
     lines = []
     for option, values in DESCRIPTIONS.items():
         default = DEFAULTS[option]
@@ -114,12 +111,28 @@ def _options_help() -> str:
     return "\n\n".join(lines)
 
 
+class _RunCommand(TyperCommand):
+    """The `run` command, whose help epilog lists the spec options.
+
+    The epilog is built when help is shown, not when the app is defined: the option
+    vocabulary lives in `strativ.estimators`, whose import loads the numerical stack.
+    """
+
+    @property
+    def epilog(self) -> str:  # type: ignore[override]
+        return "Spec options:\n\n" + _options_help()
+
+    @epilog.setter
+    def epilog(self, value: str | None) -> None:
+        """Ignore the epilog given at construction; the property builds it."""
+
+
 SpecArg = Annotated[Path, typer.Argument(exists=True, dir_okay=False, readable=True,
                                          show_default=False, metavar="SPEC",
                                          help="The YAML spec file.")]
 
 
-@app.command(epilog="Spec options:\n\n" + _options_help())
+@app.command(cls=_RunCommand)
 def run(
     spec: SpecArg,
     out: Annotated[Path | None, typer.Option(
@@ -137,6 +150,12 @@ def run(
     Example:  strativ run specs/demo.yaml --out results/ --format json
     """
     with _boundary() as err:
+        from .loading import load_data
+        from .render import render_run, render_warnings
+        from .results import check_output_paths, write_outputs
+        from .runner import run_spec
+        from .spec import load_spec
+
         loaded = load_spec(spec)
         out_dir = loaded.output_dir if out is None else out.expanduser().resolve()
         chosen = tuple(dict.fromkeys(f.value for f in formats)) if formats else loaded.formats
@@ -161,6 +180,12 @@ def check(spec: SpecArg) -> None:
     Example:  strativ check specs/demo.yaml
     """
     with _boundary() as err:
+        from .loading import load_data
+        from .render import render_check, render_warnings
+        from .results import check_output_paths
+        from .runner import check_with_core, data_warnings, design_probabilities, summarize_design
+        from .spec import load_spec
+
         loaded = load_spec(spec)
         check_output_paths(loaded, loaded.output_dir, loaded.formats)
         dataset = load_data(loaded)
@@ -186,6 +211,9 @@ def init(
     Example:  strativ init demo_data/round_1.csv --output my_study.yaml
     """
     with _boundary() as err:
+        from .spec import DATA_SUFFIXES
+        from .starter import starter_spec, write_new_file
+
         if data.suffix.lower() not in DATA_SUFFIXES:
             raise UsageError(f"{data.name} is not a CSV or Parquet file",
                              "strativ reads files ending in .csv, .parquet or .pq")

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import hashlib
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -26,7 +26,7 @@ from .spec import Spec, suggest
 from .tables import OTHER_DELIMITERS, Table, read_table
 from .values import Parsed, parse_binary, parse_label, parse_number
 
-__all__ = ["InputFile", "Dataset", "load_data", "file_fingerprint"]
+__all__ = ["InputFile", "Dataset", "load_data", "file_digest", "file_fingerprint"]
 
 STRATUM_JOIN = " / "
 """Separator between the parts of a stratum label built from several columns."""
@@ -85,6 +85,10 @@ class Dataset:
     """(column, rows dropped because it was missing there), for incomplete rows."""
     n_dropped: int
     """Incomplete rows dropped (a row missing several columns counts once)."""
+    stratum_parts: dict[Any, tuple[Any, ...]] = field(default_factory=dict)
+    """For a stratum built from several columns: label -> the value of each stratum column,
+    in the spec's order (int when every value of that column is an integer, else str). Empty
+    for a stratum from one column."""
 
     @property
     def n_rows(self) -> int:
@@ -101,8 +105,37 @@ def _row_text(row: int, line: int) -> str:
     return f"row {row} (line {line})" if line else f"row {row}"
 
 
-def file_fingerprint(path: Path, rows: int) -> InputFile:
-    """Return the size and SHA-256 of `path`, read in chunks.
+def file_digest(path: Path) -> str:
+    """Return the hex SHA-256 of the bytes of `path`, read in chunks.
+
+    Parameters
+    ----------
+    path : Path
+        The file.
+
+    Returns
+    -------
+    str
+        64 lowercase hex digits.
+
+    Raises
+    ------
+    DataError
+        When the file cannot be read.
+    """
+    digest = hashlib.sha256()
+    try:
+        with path.open("rb") as handle:
+            for chunk in iter(lambda: handle.read(1 << 20), b""):
+                digest.update(chunk)
+    except OSError as exc:
+        raise DataError(path, None, (), f"cannot read the file ({exc.strerror})",
+                        "check that the file exists and is readable") from None
+    return digest.hexdigest()
+
+
+def file_fingerprint(path: Path, rows: int, *, sha256: str | None = None) -> InputFile:
+    """Return the size and SHA-256 of `path`.
 
     Parameters
     ----------
@@ -110,17 +143,39 @@ def file_fingerprint(path: Path, rows: int) -> InputFile:
         The file.
     rows : int
         Data rows it holds (recorded, not counted here).
+    sha256 : str, optional
+        Its digest when already computed (by `file_digest`); computed here otherwise.
 
     Returns
     -------
     InputFile
         The fingerprint.
     """
-    digest = hashlib.sha256()
-    with path.open("rb") as handle:
-        for chunk in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(chunk)
-    return InputFile(path, path.stat().st_size, digest.hexdigest(), rows)
+    digest = file_digest(path) if sha256 is None else sha256
+    return InputFile(path, path.stat().st_size, digest, rows)
+
+
+def _distinct_digests(spec: Spec) -> list[str]:
+    """Return the SHA-256 of every data file; refuse two files with the same bytes.
+
+    A wave sent again under a new name would otherwise be stacked and count every row twice.
+    Empty files are left to the reader, which refuses them with its own message.
+    """
+    digests: list[str] = []
+    seen: dict[str, Path] = {}
+    for path in spec.data:
+        digest = file_digest(path)
+        digests.append(digest)
+        first = seen.setdefault(digest, path) if path.stat().st_size else path
+        if first != path:
+            this = f"this file ({path}) has " if first.name == path.name else ""
+            other = str(first) if first.name == path.name else first.name
+            raise DataError(path, None, (), f"{this}the same content as {other} (SHA-256 "
+                            f"{digest[:12]}...), so its rows would be counted twice",
+                            f"list each file once in 'data' of {spec.path.name} (or narrow "
+                            "the pattern); if they should be two different waves, export the "
+                            "second one again")
+    return digests
 
 
 def _spec_roles(spec: Spec) -> dict[str, tuple[str, int | None]]:
@@ -243,7 +298,8 @@ def load_data(spec: Spec) -> Dataset:
     Raises
     ------
     DataError
-        On an empty, unreadable or wrongly delimited file; a missing or duplicated column; an
+        On an empty, unreadable or wrongly delimited file; two files with the same content
+        (the same SHA-256); a missing or duplicated column; an
         offer or take-up value other than 0/1 or true/false; a non-numeric outcome, covariate
         or probability; or a missing offer, take-up, stratum, cluster or probability value
         when the spec does not drop incomplete rows.
@@ -254,13 +310,14 @@ def load_data(spec: Spec) -> Dataset:
     files: list[InputFile] = []
     dropped = dict.fromkeys(incomplete_names, 0)
     n_read = n_dropped = 0
+    digests = _distinct_digests(spec)
     for index, path in enumerate(spec.data):
         table = read_table(path, list(roles))
         _check_columns(path, table, spec, roles)
         parsed = _parse_file(path, table, spec)
         n = table.rows.size
         n_read += n
-        files.append(file_fingerprint(path, n))
+        files.append(file_fingerprint(path, n, sha256=digests[index]))
         incomplete = np.zeros(n, dtype=bool)
         for name in incomplete_names:
             miss = parsed[name].missing
@@ -300,6 +357,7 @@ def _assemble(spec: Spec, files: list[InputFile], pieces: list[dict[str, np.ndar
     if len(parts) > 1:
         _check_joined_labels(spec, parts, labels)
     stratum = _integer_labels(labels) if len(parts) == 1 else labels
+    stratum_parts = {} if len(parts) == 1 else _label_parts(labels, parts)
     return Dataset(
         files=tuple(files),
         outcomes={name: stack(name) for name in cols.outcome},
@@ -316,7 +374,15 @@ def _assemble(spec: Spec, files: list[InputFile], pieces: list[dict[str, np.ndar
         n_read=n_read,
         dropped=tuple((name, count) for name, count in dropped.items() if count),
         n_dropped=n_dropped,
+        stratum_parts=stratum_parts,
     )
+
+
+def _label_parts(labels: np.ndarray, parts: list[np.ndarray]) -> dict[Any, tuple[Any, ...]]:
+    """Combined label -> its value in each stratum column, each column typed on its own."""
+    unique, first = np.unique(labels, return_index=True)
+    typed = [_integer_labels(part[first]) for part in parts]
+    return {label: tuple(column[i] for column in typed) for i, label in enumerate(unique)}
 
 
 def _check_joined_labels(spec: Spec, parts: list[np.ndarray], labels: np.ndarray) -> None:

@@ -1,13 +1,12 @@
 """Terminal output: the run report, the check summary, warnings and errors.
 
-Results go to a stdout console, warnings and errors to a stderr console. Every user-supplied
+Results go to a stdout console, warnings and errors to a stderr console (both made by
+`console.make_console`, which also prints the error line; re-exported here). Every user-supplied
 string (titles, paths, column names, stratum labels) enters rich as `Text`, never as markup.
 """
 
 from __future__ import annotations
 
-import io
-import os
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -22,7 +21,7 @@ from rich.text import Text
 from strativ.estimators.options import USES_ASSIGNMENT, USES_SAMPLING, WEAK_FIRST_STAGE_F
 
 from .cautions import variance_used
-from .errors import CliError
+from .console import make_console, render_error
 from .loading import Dataset
 from .reading import (
     ASSUMPTIONS,
@@ -48,36 +47,6 @@ _SHOWN_WHEN_MANY = 15
 _GAP = 3
 """Cells between two columns of a borderless SIMPLE_HEAD table (padding, divider, padding)."""
 _KEY_MIN = 12
-
-
-class _Console(Console):
-    """A console that stops printing, instead of exiting, when its reader goes away.
-
-    `strativ run ... | head` closes the pipe early; the run must still write its result
-    files and exit 0, so the rest of the report is dropped rather than the run aborted.
-    """
-
-    def on_broken_pipe(self) -> None:
-        self.quiet = True
-        try:  # later flushes (also at interpreter exit) go nowhere instead of failing
-            target = self.file.fileno()
-        except (OSError, ValueError, AttributeError, io.UnsupportedOperation):
-            return
-        devnull = os.open(os.devnull, os.O_WRONLY)
-        try:
-            os.dup2(devnull, target)
-        finally:
-            os.close(devnull)
-
-
-def make_console(*, stderr: bool = False) -> Console:
-    """Return a console on stdout (or stderr) without syntax highlighting.
-
-    Width and colour follow the terminal; ``COLUMNS`` and ``NO_COLOR`` override them. The
-    stderr console does not hard-wrap, so that each message stays one line in a log. A
-    closed pipe silences the console instead of ending the program.
-    """
-    return _Console(stderr=stderr, highlight=False, soft_wrap=stderr)
 
 
 @dataclass(frozen=True, slots=True)
@@ -332,8 +301,3 @@ def render_warnings(console: Console, warnings: Iterable[str]) -> None:
     """Print each warning on the stderr console."""
     for warning in warnings:
         console.print(Text.assemble(Text("warning: ", style="yellow"), _t(warning)))
-
-
-def render_error(console: Console, error: CliError) -> None:
-    """Print a typed error on the stderr console."""
-    console.print(Text.assemble(Text("error: ", style="bold red"), _t(error.render())))

@@ -12,13 +12,13 @@ import fnmatch
 import io
 import json
 import os
-import tempfile
 from datetime import datetime, timezone
 from importlib import resources
 from pathlib import Path
 from typing import Any
 
 from .errors import UsageError
+from .files import temporary_file
 from .runner import Run
 from .spec import Spec, glob_pattern
 
@@ -30,6 +30,8 @@ __all__ = [
     "check_output_paths",
     "results_document",
     "strata_table",
+    "strata_csv_columns",
+    "stratum_columns",
     "write_outputs",
     "load_schema",
 ]
@@ -48,8 +50,55 @@ STRATA_COLUMNS = (
 """Columns of strata.csv, in order."""
 
 
+def stratum_columns(run: Run, label: Any) -> dict[str, Any]:
+    """Return ``{"stratum_columns": {column: value}}`` for a stratum built from several
+    columns, or ``{}`` for a stratum from one column (its label is then the value itself).
+
+    Parameters
+    ----------
+    run : Run
+        The fitted run.
+    label : str or int
+        The stratum's combined label.
+
+    Returns
+    -------
+    dict
+        Empty, or one key holding the value of each stratum column in the spec's order.
+    """
+    parts = run.dataset.stratum_parts.get(label)
+    if parts is None:
+        return {}
+    return {"stratum_columns": dict(zip(run.spec.columns.stratum, parts, strict=True))}
+
+
+def strata_csv_columns(run: Run) -> tuple[str, ...]:
+    """Return the header of strata.csv: `STRATA_COLUMNS`, with one column per stratum column
+    after ``stratum`` when the stratum is built from several columns.
+
+    A stratum column whose name is already a column of strata.csv is written as
+    ``stratum.<name>``.
+
+    Parameters
+    ----------
+    run : Run
+        The fitted run.
+
+    Returns
+    -------
+    tuple of str
+        The column names, in order.
+    """
+    if not run.dataset.stratum_parts:
+        return STRATA_COLUMNS
+    parts = tuple(f"stratum.{name}" if name in STRATA_COLUMNS else name
+                  for name in run.spec.columns.stratum)
+    at = STRATA_COLUMNS.index("stratum") + 1
+    return STRATA_COLUMNS[:at] + parts + STRATA_COLUMNS[at:]
+
+
 def tool_version() -> str:
-    """Return the installed strativ version, or "unknown" when not installed."""
+    """Return the strativ version (installed, else from the source tree, else "unknown")."""
     from . import __version__
 
     return __version__
@@ -136,9 +185,11 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
         for estimate in comp["estimates"]:
             estimates.append({"outcome": result.outcome, **estimate})
         for row in comp["strata"]["rows"]:
-            strata.append({"outcome": result.outcome, **row})
+            strata.append({"outcome": result.outcome, **row,
+                           **stratum_columns(run, row["label"])})
         for excluded in comp["strata"]["excluded"]:
-            exclusions.append({"outcome": result.outcome, **excluded})
+            exclusions.append({"outcome": result.outcome, **excluded,
+                               **stratum_columns(run, excluded["label"])})
         comparisons.append({
             "outcome": result.outcome,
             "rows_used": result.cells.n_units,
@@ -159,7 +210,8 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
     if formats is not None:
         spec["output"]["formats"] = list(formats)
     probabilities = None if run.offer_probability is None else [
-        {"stratum": label, "probability": prob} for label, prob in run.offer_probability.items()]
+        {"stratum": label, "probability": prob, **stratum_columns(run, label)}
+        for label, prob in run.offer_probability.items()]
     return {
         "schema_version": SCHEMA_VERSION,
         "tool": {"name": "strativ", "version": tool_version()},
@@ -178,7 +230,8 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
         "comparisons": comparisons,
         "strata": strata,
         "exclusions": exclusions,
-        "attrition": [a.to_dict() for r in run.outcomes for a in r.attrition],
+        "attrition": [{**a.to_dict(), **stratum_columns(run, a.stratum)}
+                      for r in run.outcomes for a in r.attrition],
         "warnings": list(run.warnings),
     }
 
@@ -202,27 +255,39 @@ def strata_table(run: Run) -> str:
     Returns
     -------
     str
-        CSV text with the header `STRATA_COLUMNS`; numbers are the core's, in full precision.
+        CSV text with the header `strata_csv_columns(run)`; numbers are the core's, in full
+        precision.
     """
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
-    writer.writerow(STRATA_COLUMNS)
+    header = strata_csv_columns(run)
+    writer.writerow(header)
+    at = STRATA_COLUMNS.index("stratum") + 1
+    names = header[at:at + len(header) - len(STRATA_COLUMNS)]
+
+    def parts(label: Any) -> dict[str, Any]:
+        values = run.dataset.stratum_parts.get(label, ())
+        return dict(zip(names, values, strict=False))
+
     for result in run.outcomes:
         table = result.comparison.strata.to_dict()
         for row in table["rows"]:
             record = {"outcome": result.outcome, "stratum": row["label"], "used": True,
-                      "exclusion_reason": None, **row}
-            writer.writerow([_cell(record.get(c)) for c in STRATA_COLUMNS])
+                      "exclusion_reason": None, **row, **parts(row["label"])}
+            writer.writerow([_cell(record.get(c)) for c in header])
         for row in table["excluded"]:
             record = {"outcome": result.outcome, "stratum": row["label"], "used": False,
-                      "exclusion_reason": row["reason"], "n": row["n"]}
-            writer.writerow([_cell(record.get(c)) for c in STRATA_COLUMNS])
+                      "exclusion_reason": row["reason"], "n": row["n"], **parts(row["label"])}
+            writer.writerow([_cell(record.get(c)) for c in header])
     return buffer.getvalue()
 
 
 def write_outputs(run: Run, out_dir: Path, formats: tuple[str, ...], *,
                   created: str | None = None) -> list[Path]:
     """Write the result files atomically (temporary file in `out_dir`, then rename).
+
+    The files get the permissions of any new file under the current umask (0644 under
+    umask 022).
 
     Parameters
     ----------
@@ -253,11 +318,11 @@ def write_outputs(run: Run, out_dir: Path, formats: tuple[str, ...], *,
     if "csv" in formats:
         texts["csv"] = strata_table(run)
     made_dir = not out_dir.exists()
-    temps: list[tuple[str, Path]] = []
+    temps: list[tuple[Path, Path]] = []
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
         for fmt in formats:
-            fd, tmp = tempfile.mkstemp(prefix=".strativ-", suffix=".tmp", dir=out_dir)
+            fd, tmp = temporary_file(out_dir)
             temps.append((tmp, out_dir / FILE_NAMES[fmt]))
             with os.fdopen(fd, "w", encoding="utf-8", newline="") as handle:
                 handle.write(texts[fmt])
@@ -267,8 +332,7 @@ def write_outputs(run: Run, out_dir: Path, formats: tuple[str, ...], *,
             os.replace(tmp, target)
     except OSError as exc:
         for tmp, _ in temps:
-            if os.path.exists(tmp):
-                os.unlink(tmp)
+            tmp.unlink(missing_ok=True)
         if made_dir and out_dir.is_dir() and not any(out_dir.iterdir()):
             out_dir.rmdir()
         raise UsageError(f"cannot write the results into {out_dir} ({exc.strerror})",

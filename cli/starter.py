@@ -11,7 +11,6 @@ from __future__ import annotations
 import json
 import os
 import re
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -25,6 +24,7 @@ from strativ.estimators.options import (
 )
 
 from .errors import UsageError
+from .files import temporary_file
 from .tables import read_table
 from .values import parse_binary, parse_number
 
@@ -222,7 +222,11 @@ def write_new_file(path: Path, text: str) -> None:
     directory = path.parent
     if not directory.is_dir():
         raise UsageError(f"cannot write {path}: the directory {directory} does not exist")
-    fd, tmp = tempfile.mkstemp(prefix=".strativ-", suffix=".tmp", dir=directory)
+    try:
+        fd, tmp = temporary_file(directory)
+    except OSError as exc:
+        raise UsageError(f"cannot write {path} ({exc.strerror})",
+                         "choose a writable folder with --output") from None
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as handle:
             handle.write(text)

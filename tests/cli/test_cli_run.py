@@ -360,12 +360,13 @@ def test_excluded_strata_are_listed_with_their_reason(study: Study, invoke) -> N
 
 
 def test_internal_error_is_reported_without_traceback(study: Study, invoke, monkeypatch) -> None:
-    import strativ.cli.app as app_module
+    import strativ.cli.runner as runner_module
 
     def broken(*args, **kwargs):
         raise RuntimeError("simulated bug")
 
-    monkeypatch.setattr(app_module, "run_spec", broken)
+    # the run command imports run_spec from the runner when it runs
+    monkeypatch.setattr(runner_module, "run_spec", broken)
     result = invoke("run", study.spec, "--out", study.out)
     # source: cli/app.py boundary, exit 1 = unexpected internal error
     assert_clean_failure(

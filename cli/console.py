@@ -1,0 +1,71 @@
+"""The terminal consoles and the one-line error message, kept free of the numerical stack.
+
+`strativ --help`, `--version` and every error message go through this module alone, so they
+start without importing numpy, pandas or the estimators. Results go to a stdout console,
+warnings and errors to a stderr console.
+"""
+
+from __future__ import annotations
+
+import io
+import os
+
+from rich.console import Console
+from rich.text import Text
+
+from .errors import CliError
+
+__all__ = ["make_console", "render_error"]
+
+
+class _Console(Console):
+    """A console that stops printing, instead of exiting, when its reader goes away.
+
+    `strativ run ... | head` closes the pipe early; the run must still write its result
+    files and exit 0, so the rest of the report is dropped rather than the run aborted.
+    """
+
+    def on_broken_pipe(self) -> None:
+        self.quiet = True
+        try:  # later flushes (also at interpreter exit) go nowhere instead of failing
+            target = self.file.fileno()
+        except (OSError, ValueError, AttributeError, io.UnsupportedOperation):
+            return
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        try:
+            os.dup2(devnull, target)
+        finally:
+            os.close(devnull)
+
+
+def make_console(*, stderr: bool = False) -> Console:
+    """Return a console on stdout (or stderr) without syntax highlighting.
+
+    Width and colour follow the terminal; ``COLUMNS`` and ``NO_COLOR`` override them. The
+    stderr console does not hard-wrap, so that each message stays one line in a log. A
+    closed pipe silences the console instead of ending the program.
+
+    Parameters
+    ----------
+    stderr : bool, default=False
+        Write to stderr instead of stdout.
+
+    Returns
+    -------
+    Console
+        The console.
+    """
+    return _Console(stderr=stderr, highlight=False, soft_wrap=stderr)
+
+
+def render_error(console: Console, error: CliError) -> None:
+    """Print a typed error on the stderr console; its text enters rich as `Text`, not markup.
+
+    Parameters
+    ----------
+    console : Console
+        The stderr console.
+    error : CliError
+        The error to report.
+    """
+    console.print(Text.assemble(Text("error: ", style="bold red"), Text(error.render())))
