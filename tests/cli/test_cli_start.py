@@ -90,3 +90,20 @@ def test_version_falls_back_to_the_source_tree_when_not_installed(monkeypatch) -
     # source: pyproject.toml, [project] version
     expected = re.search(r'^version = "([^"]+)"', text, re.MULTILINE).group(1)
     assert cli_package._package_version() == expected
+
+
+def test_run_help_reads_the_option_vocabulary_without_numerical_libraries() -> None:
+    code = (
+        "import contextlib, io, sys\n"
+        "sys.argv = ['strativ', 'run', '--help']\n"
+        "from strativ.cli.app import main\n"
+        "with contextlib.redirect_stdout(io.StringIO()):\n"
+        "    try:\n"
+        "        main()\n"
+        "    except SystemExit:\n"
+        "        pass\n"
+    )
+    loaded = _heavy_in(_modules_after(code))
+    # common practice, no source: the package imports its submodules on first use, so the
+    # options module alone pulls in no numerical library
+    assert not [m for m in loaded if m != "strativ.estimators"], loaded
