@@ -13,7 +13,7 @@ if TYPE_CHECKING:
     from .cells import OUTCOME_LIMIT, CellTable, ClusterSums, build_cells, cells_from_frame
     from .design import excluded_strata
     from .errors import DegenerateDesignError, EstimatorError, InputError
-    from .fit import fit, fit_all
+    from .fitting import fit, fit_all
     from .options import ESTIMATORS
     from .results import (
         Comparison,
@@ -41,8 +41,8 @@ _LAZY = {
     "EstimatorError": "errors",
     "InputError": "errors",
     "ESTIMATORS": "options",
-    "fit": "fit",
-    "fit_all": "fit",
+    "fit": "fitting",
+    "fit_all": "fitting",
     "Comparison": "results",
     "ConfidenceSet": "results",
     "ConstantEffectTest": "results",
