@@ -14,6 +14,7 @@ if TYPE_CHECKING:
     from .design import excluded_strata
     from .errors import DegenerateDesignError, EstimatorError, InputError
     from .fitting import fit, fit_all
+    from .moments import cells_from_moments, moment_query
     from .options import ESTIMATORS
     from .results import (
         Comparison,
@@ -43,6 +44,8 @@ _LAZY = {
     "ESTIMATORS": "options",
     "fit": "fitting",
     "fit_all": "fitting",
+    "cells_from_moments": "moments",
+    "moment_query": "moments",
     "Comparison": "results",
     "ConfidenceSet": "results",
     "ConstantEffectTest": "results",
@@ -81,9 +84,11 @@ __all__ = [
     "StratumTable",
     "build_cells",
     "cells_from_frame",
+    "cells_from_moments",
     "excluded_strata",
     "fit",
     "fit_all",
+    "moment_query",
 ]
 
 

@@ -13,7 +13,7 @@ from scipy.special import stdtrit
 from .cells import CellTable
 from .design import Design, analysis_design
 from .diagnostics import NULL_DRAWS, constant_effect_test, negative_first_stages
-from .engine import covariance, ratio_variance, rule
+from .engine import covariance, ratio_variance, rule, within_degrees_of_freedom
 from .errors import InputError
 from .first_stage import first_stage_statistics
 from .forms import LinearForm, complier_form, design_weighted_form, fixed_effects_form
@@ -129,13 +129,26 @@ def _notes(estimator: str, variance: str, probability: np.ndarray | None,
     return tuple(notes)
 
 
-def _critical(design: Design, variance: str, level: float) -> float:
-    """Normal critical value; Student t on K - 1 degrees of freedom under the pairs rule,
-    where the variance rests on K stratum draws."""
-    k = len(design.labels)
-    if rule(design, variance) == "pairs" and k >= 2:
-        return float(stdtrit(k - 1, 0.5 + level / 2.0))
-    return critical_value(level)
+def _reference(design: Design, form: LinearForm, omega: np.ndarray, variance: str,
+               level: float) -> tuple[float, float | None]:
+    """Critical value and degrees of freedom of the interval and the Fieller set.
+
+    Student t on the Welch-Satterthwaite degrees of freedom of ``Var(N - theta D)``: each
+    cell's within part rests on ``n_sz - 1`` (clusters: ``G_sz - 1``) degrees of freedom,
+    and a few small cells (two clusters per cell, five offered units) dominate the variance
+    in the designs where a normal reference under-covers; under the pairs rule, ``K - 1``.
+    Normal (None) when the first stage is zero or the variance has no within part.
+    """
+    d = form.denominator
+    if d == 0:
+        return critical_value(level), None
+    theta = form.numerator / d
+    total = float(omega[0, 0] - 2.0 * theta * omega[0, 1] + theta * theta * omega[1, 1])
+    projection = np.array([[[1.0], [-theta]]])
+    df = within_degrees_of_freedom(design, [form], projection, variance=variance, total=total)
+    if df is None:
+        return critical_value(level), None
+    return float(stdtrit(df, 0.5 + level / 2.0)), df
 
 
 def _std_error_problem(design: Design, form: LinearForm, variance: str) -> str | None:
@@ -165,8 +178,8 @@ def _estimate(
     options = {"variance": variance, "assignment": assignment, "sampling": sampling}
     omega = covariance(design, [form], **options)
     spread = covariance(design, [form], centred=True, **options)
-    z = _critical(design, variance, level)
     n, d = form.numerator, form.denominator
+    z, df = _reference(design, form, omega, variance, level)
     a, b, c = float(omega[0, 0]), float(omega[0, 1]), float(omega[1, 1])
     problem = _std_error_problem(design, form, variance)
     strength = first_stage_statistics(design, form, estimator, **options)
@@ -193,6 +206,7 @@ def _estimate(
         estimate=estimate,
         std_error=std_error,
         interval=interval,
+        degrees_of_freedom=df if interval is not None else None,
         confidence_set=conf,
         first_stage_f=strength.f,
         first_stage_f_unadjusted=strength.f_unadjusted,

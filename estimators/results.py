@@ -87,7 +87,11 @@ class Estimate:
     std_error: float | None
     """Delta-method standard error in the chosen flavour; never zero (None with a reason)."""
     interval: tuple[float, float] | None
-    """Normal confidence interval at `level`."""
+    """Confidence interval at `level`: estimate -/+ the t (or normal) critical value times
+    `std_error`."""
+    degrees_of_freedom: float | None
+    """Welch-Satterthwaite degrees of freedom of the t reference of `interval` and
+    `confidence_set` (K - 1 under the pairs rule); None for the normal reference."""
     confidence_set: ConfidenceSet
     """Fieller / Anderson-Rubin set at `level`; honest under a weak first stage."""
     first_stage_f: float | None

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from scipy.stats import t as student_t
 
 from strativ.estimators import build_cells, fit, fit_all
 
@@ -90,7 +91,9 @@ def test_fieller_bounds_solve_the_defining_quadratic():
     form = fixed_effects_form(design)
     omega = covariance(design, [form], variance="stratified", assignment="block",
                        sampling="random")
-    zc = 1.959963984540054
+    # reference: scipy.stats t quantile on the estimate's degrees of freedom (normal if None)
+    df = est.degrees_of_freedom
+    zc = float(student_t.ppf(0.975, df)) if df is not None else 1.959963984540054
     for t in (est.confidence_set.lower, est.confidence_set.upper):
         lhs = (form.numerator - t * form.denominator) ** 2
         rhs = zc**2 * (omega[0, 0] - 2 * t * omega[0, 1] + t * t * omega[1, 1])
