@@ -215,15 +215,25 @@ def _cell_arrays_from_fine(
     }
 
 
-def _cluster_sums(
-    outcome: np.ndarray,
-    take_up: np.ndarray,
-    cell: np.ndarray,
+def cluster_sums_from_totals(
+    codes: np.ndarray,
     cluster: np.ndarray,
-    arrays: dict[str, np.ndarray],
+    cell: np.ndarray,
+    count: np.ndarray,
+    dev_outcome: np.ndarray,
+    dev_take_up: np.ndarray,
     n_cells: int,
+    *,
+    place: str,
 ) -> ClusterSums:
-    codes, _ = _factorize(cluster, "cluster")
+    """Cluster sums from per-record totals (a unit, or a group of units of one cluster).
+
+    ``codes`` are the records' cluster codes, ``cell`` their (stratum, offer) cell,
+    ``count`` their units and ``dev_*`` their deviation totals from the cell mean; ``place``
+    names a record in the refusal, with ``{}`` for its position ("index {}"). Both the row
+    route (`build_cells`) and the moment route (`cells_from_moments`) end here, so the
+    nesting rule and the sums are written once.
+    """
     n_clusters = int(codes.max()) + 1
     first_cell = np.full(n_clusters, -1, dtype=np.int64)
     first_cell[codes[::-1]] = cell[::-1]
@@ -231,19 +241,16 @@ def _cluster_sums(
         row = int(np.flatnonzero(first_cell[codes] != cell)[0])
         raise InputError(
             "cluster",
-            f"cluster {_plain(cluster[row])!r} (index {row}) spans more than one "
-            "(stratum, offer) cell; "
-            "clusters must be nested in strata and offered as a whole.",
+            f"cluster {_plain(cluster[row])!r} ({place.format(row)}) spans more than one "
+            "(stratum, offer) cell; clusters must be nested in strata and offered as a whole.",
         )
-    mean_y = arrays["mean_outcome"].reshape(-1)[cell]
-    mean_d = arrays["mean_take_up"].reshape(-1)[cell]
-    dev_y = np.bincount(codes, weights=outcome - mean_y, minlength=n_clusters)
-    dev_d = np.bincount(codes, weights=take_up - mean_d, minlength=n_clusters)
+    size = np.bincount(codes, weights=count, minlength=n_clusters)
+    dev_y = np.bincount(codes, weights=dev_outcome, minlength=n_clusters)
+    dev_d = np.bincount(codes, weights=dev_take_up, minlength=n_clusters)
 
     def per_cell(weights: np.ndarray | None) -> np.ndarray:
         return np.bincount(first_cell, weights=weights, minlength=n_cells).reshape(-1, 2)
 
-    size = np.bincount(codes, minlength=n_clusters).astype(float)
     return ClusterSums(
         count=per_cell(None).astype(np.int64),
         q_outcome=per_cell(dev_y * dev_y),
@@ -253,6 +260,21 @@ def _cluster_sums(
         size_dev_outcome=per_cell(size * dev_y),
         size_dev_take_up=per_cell(size * dev_d),
     )
+
+
+def _cluster_sums(
+    outcome: np.ndarray,
+    take_up: np.ndarray,
+    cell: np.ndarray,
+    cluster: np.ndarray,
+    arrays: dict[str, np.ndarray],
+    n_cells: int,
+) -> ClusterSums:
+    codes, _ = _factorize(cluster, "cluster")
+    mean_y = arrays["mean_outcome"].reshape(-1)[cell]
+    mean_d = arrays["mean_take_up"].reshape(-1)[cell]
+    return cluster_sums_from_totals(codes, cluster, cell, np.ones(cell.size), outcome - mean_y,
+                                    take_up - mean_d, n_cells, place="index {}")
 
 
 def build_cells(

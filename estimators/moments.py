@@ -20,11 +20,11 @@ import pandas as pd
 
 from .cells import (
     CellTable,
-    ClusterSums,
     _as_binary,
     _cell_arrays_from_fine,
     _factorize,
     _plain,
+    cluster_sums_from_totals,
 )
 from .errors import InputError
 
@@ -222,45 +222,6 @@ def _column(frame: pd.DataFrame, name: str) -> np.ndarray:
     return values
 
 
-def _group_cluster_sums(
-    codes: np.ndarray,
-    cluster: np.ndarray,
-    cell: np.ndarray,
-    count: np.ndarray,
-    dev_outcome: np.ndarray,
-    dev_take_up: np.ndarray,
-    n_cells: int,
-) -> ClusterSums:
-    """Cluster sums from per-group totals: ``dev_*`` are each group's deviation totals from
-    its cell mean, added over the (up to two) take-up groups of a cluster."""
-    n_clusters = int(codes.max()) + 1
-    first_cell = np.full(n_clusters, -1, dtype=np.int64)
-    first_cell[codes[::-1]] = cell[::-1]
-    if (first_cell[codes] != cell).any():
-        row = int(np.flatnonzero(first_cell[codes] != cell)[0])
-        raise InputError(
-            "cluster",
-            f"cluster {_plain(cluster[row])!r} (row {row} of the moment table) spans more than "
-            "one (stratum, offer) cell; clusters must be nested in strata and offered as a whole.",
-        )
-    size = np.bincount(codes, weights=count, minlength=n_clusters)
-    dev_y = np.bincount(codes, weights=dev_outcome, minlength=n_clusters)
-    dev_d = np.bincount(codes, weights=dev_take_up, minlength=n_clusters)
-
-    def per_cell(weights: np.ndarray | None) -> np.ndarray:
-        return np.bincount(first_cell, weights=weights, minlength=n_cells).reshape(-1, 2)
-
-    return ClusterSums(
-        count=per_cell(None).astype(np.int64),
-        q_outcome=per_cell(dev_y * dev_y),
-        q_cross=per_cell(dev_y * dev_d),
-        q_take_up=per_cell(dev_d * dev_d),
-        size_sq=per_cell(size**2),
-        size_dev_outcome=per_cell(size * dev_y),
-        size_dev_take_up=per_cell(size * dev_d),
-    )
-
-
 def cells_from_moments(frame: pd.DataFrame) -> CellTable:
     """The cell table from the result of `moment_query`.
 
@@ -345,7 +306,7 @@ def cells_from_moments(frame: pd.DataFrame) -> CellTable:
         cluster_codes, _ = _factorize(cluster, "cluster")
         mean_y = arrays["mean_outcome"].reshape(-1)[cell]
         mean_d = arrays["mean_take_up"].reshape(-1)[cell]
-        clusters = _group_cluster_sums(
+        clusters = cluster_sums_from_totals(
             cluster_codes,
             cluster,
             cell,
@@ -353,6 +314,7 @@ def cells_from_moments(frame: pd.DataFrame) -> CellTable:
             count * (mean_g - mean_y),
             count * (take_up - mean_d),
             2 * n_strata,
+            place="row {} of the moment table",
         )
     arrays["mean_outcome"] = np.where(
         arrays["n"] > 0, arrays["mean_outcome"] + centre[:, None], 0.0
