@@ -65,7 +65,7 @@ def test_class_design_offers_whole_classes_the_stated_number_per_stratum(name):
 @pytest.mark.parametrize(("name", "sampling"), CONFIGURATIONS)
 def test_cluster_intervals_cover_the_late_93_to_97_percent(name, sampling):
     study = _study(name, sampling)
-    # source: METHODS.md §4 (cluster: per-cell G/(G-1) scale covered 94.8 %); common
+    # source: METHODS.md §4.4 (per-cell G/(G-1) cluster form, design-consistent); common
     # practice, no source for the 93-97 % band (about +/- 2 Monte Carlo se at 500).
     # With one offered class per stratum the offered arm has no cell of two clusters, so
     # each stratum counts as one draw, which METHODS.md §4 calls conservative under effect
@@ -78,8 +78,8 @@ def test_cluster_intervals_cover_the_late_93_to_97_percent(name, sampling):
 @pytest.mark.parametrize(("name", "sampling"), CONFIGURATIONS)
 def test_the_same_data_analysed_without_clusters_under_covers(name, sampling):
     study = _study(name, sampling)
-    # source: METHODS.md §4 (a clustered design analysed as if units were independent
-    # covered 65-75 %); common practice, no source for the bound 0.90 and the distance of
+    # source: METHODS.md §4.4 (unit-level variances ignore the within-class correlation,
+    # Moulton's problem); common practice, no source for the bound 0.90 and the distance of
     # more than four Monte Carlo se below the clustered interval
     assert study.share("unclustered") < 0.90, study.counts
     assert study.share("cluster") - study.share("unclustered") > 4 * coverage_se(

@@ -75,7 +75,8 @@ def test_stratified_intervals_of_every_estimator_and_the_gap_cover_93_to_97_perc
     # lose an arm, so the analysis sample (hence the estimand) is the whole design
     assert study.excluded_strata == 0
     for name in QUANTITIES:
-        # source: METHODS.md §4 coverage claim (94.1-95.4 % outside the project);
+        # source: METHODS.md §4.2 (the stratified form is design-consistent; Bugni, Canay &
+        # Shaikh 2018);
         # common practice, no source for the 93-97 % band (about +/- 4 Monte Carlo se)
         assert 0.93 <= shares[name] <= 0.97, (assignment, sampling, shares)
 
@@ -86,8 +87,8 @@ def test_fixed_effects_interval_without_the_assignment_term_under_covers_indepen
 ):
     study = _study("independent", sampling)
     share = study.share(CONTROLS[0])
-    # source: METHODS.md §4 (without V_assign the FE interval covers only 86-92 % under
-    # independent assignment); the bound is the coverage band's lower edge, and the
+    # source: METHODS.md §4.2 (without V_assign the FE variance misses the randomness of
+    # the offered count under independent assignment); the bound is the coverage band's lower edge, and the
     # matching interval must sit above it by more than four Monte Carlo se
     assert share < 0.93
     assert study.share("fixed_effects") - share > 4 * coverage_se(0.95, REPLICATIONS)

@@ -65,7 +65,7 @@ def _coverage() -> dict[str, dict[str, float]]:
 def test_design_has_one_true_effect_and_a_weak_first_stage():
     assert late(POPULATION) == pytest.approx(TRUTH)
     assert fixed_effects_target(POPULATION) == pytest.approx(TRUTH)
-    # source: METHODS.md §4 (the outside simulation used first stage 0.03-0.05)
+    # common practice, no source: a weak design, complier share 3-5 %
     assert 0.03 <= float(POPULATION.complier.min()) <= 0.05
     for name, result in _coverage().items():
         if name == "interacted":
@@ -73,17 +73,19 @@ def test_design_has_one_true_effect_and_a_weak_first_stage():
             # which spreads the same first stage over K instruments: weak by the rule of thumb
             assert result["median_f"] < 10.0, (name, result)
             continue
-        # source: METHODS.md §4 (outside simulation had F about 5-12; Staiger & Stock 1997
-        # rule of thumb: F below 10 is weak)
+        # common practice, no source for the 5-12 band around the rule of thumb that F below
+        # 10 is weak (Staiger & Stock 1997)
         assert 5.0 <= result["median_f"] <= 12.0, (name, result)
 
 
 @pytest.mark.parametrize("estimator", ESTIMATORS)
 def test_fieller_set_covers_93_to_97_percent_while_the_normal_interval_under_covers(estimator):
     result = _coverage()[estimator]
-    # source: METHODS.md §4 (Fieller set covered 94.8-95.4 % outside the project);
+    # source: METHODS.md §4.7 (the Fieller / Anderson-Rubin set is exact under a weak
+    # first stage; Staiger & Stock 1997);
     # common practice, no source for the 93-97 % band (about +/- 4 Monte Carlo se)
     assert 0.93 <= result["fieller"] <= 0.97, result
-    # source: METHODS.md §4 (normal interval covered 91.7 % with strong endogeneity);
+    # source: METHODS.md §4.7 (the normal interval is not honest when the first stage is
+    # weak and take-up is endogenous);
     # common practice, no source for the bound (the band's lower edge)
     assert result["normal"] < 0.93, result
