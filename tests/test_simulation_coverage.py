@@ -88,8 +88,9 @@ def test_fixed_effects_interval_without_the_assignment_term_under_covers_indepen
     study = _study("independent", sampling)
     share = study.share(CONTROLS[0])
     # source: METHODS.md §4.2 (without V_assign the FE variance misses the randomness of
-    # the offered count under independent assignment); the bound is the coverage band's lower edge, and the
-    # matching interval must sit above it by more than four Monte Carlo se
+    # the offered count under independent assignment); the bound is the coverage band's
+    # lower edge, and the matching interval must sit above it by more than four Monte
+    # Carlo se
     assert share < 0.93
     assert study.share("fixed_effects") - share > 4 * coverage_se(0.95, REPLICATIONS)
 
