@@ -11,6 +11,7 @@ import math
 import re
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from decimal import Decimal
 from numbers import Integral, Real
 from typing import Any
 
@@ -28,7 +29,9 @@ __all__ = [
 MISSING_TOKENS = frozenset({"", "na", "n/a", "nan", "null", "none"})
 """Text read as a missing value (compared after trimming spaces, ignoring case)."""
 
-_BINARY_TEXT = {"0": 0, "1": 1, "false": 0, "true": 1}
+_BINARY_TEXT = {"false": 0, "true": 1}
+_PLAIN_NUMBER = r"[-+]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][-+]?[0-9]+)?"
+_PLAIN_NUMBER_CELL = re.compile(_PLAIN_NUMBER)
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -67,7 +70,14 @@ def is_missing(value: Any) -> bool:
 
 def _binary(value: Any) -> int | None:
     if isinstance(value, str):
-        return _BINARY_TEXT.get(value.strip().lower())
+        text = value.strip().lower()
+        if text in _BINARY_TEXT:
+            return _BINARY_TEXT[text]
+        # any plain decimal number equal to 0 or 1: a 0/1 column holding a missing value is
+        # written by many tools as 1.0/0.0
+        if _PLAIN_NUMBER_CELL.fullmatch(text) and Decimal(text) in (0, 1):
+            return int(Decimal(text))
+        return None
     if isinstance(value, (bool, np.bool_)):
         return int(value)
     if isinstance(value, Real) and float(value) in (0.0, 1.0):
@@ -107,7 +117,6 @@ def _parse(cells: Sequence[Any], convert: Callable[[Any], Any], values: np.ndarr
 
 # Fast paths for text columns (CSV). Each handles only cells whose result is certain without
 # the per-cell rules above and sends every other cell through those rules, so results agree.
-_PLAIN_NUMBER = r"[-+]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][-+]?[0-9]+)?"
 _ODD_NUMBER = re.compile(rf"^(?!{_PLAIN_NUMBER}$)", re.MULTILINE)
 """Start of each line that is not a plain decimal number (no spaces, underscores, words)."""
 _ODD_LABEL = re.compile(r"^(?:$|[^\S\n]|.*[^\S\n]$|(?:[nN][aA]|[nN]/[aA]|[nN][aA][nN]|"
@@ -187,7 +196,9 @@ def _fast_label(cells: Sequence[Any]) -> Parsed | None:
 
 
 def parse_binary(cells: Sequence[Any]) -> Parsed:
-    """Parse a 0/1 column; accepted codes are 0/1 and true/false (any case), nothing else.
+    """Parse a 0/1 column: any number equal to 0 or 1 (0, 1.0, 1.00) or true/false (any case).
+
+    Other codes (yes/no, 1/2) are invalid.
 
     Parameters
     ----------
@@ -262,6 +273,10 @@ def _label(value: Any) -> str:
 def parse_label(cells: Sequence[Any]) -> Parsed:
     """Parse a label column (stratum, cluster) into trimmed text; integral numbers lose ".0".
 
+    A typed number loses ".0" on its own. Text loses its decimal zeros only when every
+    non-missing label of the column is an integer, written with or without them ("63.0",
+    "63"): a float column written as text then gives the labels it gives from a typed file.
+
     Parameters
     ----------
     cells : sequence
@@ -273,7 +288,25 @@ def parse_label(cells: Sequence[Any]) -> Parsed:
         object array of str; `invalid` is always empty.
     """
     fast = _fast_label(cells)
-    return fast if fast is not None else _slow_label(cells)
+    return _integral_text(fast if fast is not None else _slow_label(cells))
+
+
+_NOT_INTEGRAL = re.compile(r"^(?!-?(?:0|[1-9][0-9]*)(?:\.0+)?$)", re.MULTILINE)
+"""Start of each line that is not an integer, with or without decimal zeros (63, 63.0)."""
+
+
+def _integral_text(parsed: Parsed) -> Parsed:
+    """Drop the decimal zeros of text labels when every label is an integer written so."""
+    kept = parsed.values[~parsed.missing].tolist()
+    if not kept or set(map(type, kept)) != {str}:
+        return parsed
+    text = "\n".join(kept)
+    if "." not in text or text.count("\n") != len(kept) - 1 or _NOT_INTEGRAL.search(text):
+        return parsed
+    plain = {label: str(int(label.partition(".")[0])) for label in set(kept)}
+    values = parsed.values.copy()
+    values[~parsed.missing] = [plain[label] for label in kept]
+    return Parsed(values, parsed.missing, parsed.invalid)
 
 
 def _slow_label(cells: Sequence[Any]) -> Parsed:

@@ -61,11 +61,11 @@ def test_take_up_coded_2_is_rejected(study: Study, invoke) -> None:
     )
 
 
-def test_decimal_codes_are_not_silently_accepted(study: Study, invoke) -> None:
+def test_decimal_codes_other_than_0_1_are_not_silently_accepted(study: Study, invoke) -> None:
     rows = study_rows()
-    rows[0]["offer"] = "1.0"
+    rows[0]["offer"] = "1.5"
     write_csv(study.data, rows)
-    _fails(study, invoke, "'1.0' in row 1 (line 2)")
+    _fails(study, invoke, "'1.5' in row 1 (line 2)")
 
 
 def test_true_false_codes_equal_0_1_codes(study: Study, invoke) -> None:

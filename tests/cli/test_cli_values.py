@@ -9,12 +9,15 @@ import numpy as np
 from strativ.cli.values import is_missing, parse_binary, parse_label, parse_number
 
 
-def test_binary_accepts_only_0_1_and_true_false() -> None:
-    cells = ["0", "1", " true ", "FALSE", "True", "yes", "1.0", "2", "", "NA", True, 0, 1.0, 0.5]
+def test_binary_accepts_only_numbers_equal_to_0_1_and_true_false() -> None:
+    cells = ["0", "1", " true ", "FALSE", "True", "yes", "1.0", "2", "", "NA", True, 0, 1.0, 0.5,
+             "0.0", "1.00", "2.0", "1e-400"]
     parsed = parse_binary(cells)
-    # source: issue 4, accepted encodings are 0/1 and true/false, nothing else silently
-    assert parsed.values[[0, 1, 2, 3, 4, 10, 11, 12]].tolist() == [0, 1, 1, 0, 1, 1, 0, 1]
-    assert parsed.invalid.tolist() == [5, 6, 7, 13]
+    # source: issue 8 point 1, any number equal to 0 or 1 and true/false; other codes refused
+    assert parsed.values[[0, 1, 2, 3, 4, 6, 10, 11, 12, 14, 15]].tolist() == \
+        [0, 1, 1, 0, 1, 1, 1, 0, 1, 0, 1]
+    # source: issue 4 and issue 8, yes/no and 1/2 codes are not read silently
+    assert parsed.invalid.tolist() == [5, 7, 13, 16, 17]
     assert np.flatnonzero(parsed.missing).tolist() == [8, 9]
 
 
@@ -39,3 +42,13 @@ def test_labels_are_trimmed_text_and_integral_numbers_lose_the_point() -> None:
     # common practice, no source: 3.0 read from a typed file is the label "3"
     assert parsed.values[:5].tolist() == ["north", "3", "3", "2.5", "true"]
     assert parsed.missing.tolist() == [False] * 5 + [True]
+
+
+def test_integral_text_labels_lose_decimal_zeros_only_when_all_are_integers() -> None:
+    # source: issue 8 point 1, an integer stratum id is an integer from CSV and Parquet alike
+    assert parse_label(["63.0", " 7.00 ", "NA", "-0.0", "12"]).values.tolist() == \
+        ["63", "7", "", "0", "12"]
+    # common practice, no source: one non-integer label keeps the column as written
+    assert parse_label(["63.0", "2.5"]).values.tolist() == ["63.0", "2.5"]
+    assert parse_label(["63.0", "north"]).values.tolist() == ["63.0", "north"]
+    assert parse_label(["007.0", "1.0"]).values.tolist() == ["007.0", "1.0"]
