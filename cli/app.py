@@ -150,7 +150,7 @@ def run(
     Example:  strativ run specs/demo.yaml --out results/ --format json
     """
     with _boundary() as err:
-        from .loading import load_data
+        from .grouped import group_data
         from .render import render_run, render_warnings
         from .results import check_output_paths, write_outputs
         from .runner import run_spec
@@ -160,8 +160,7 @@ def run(
         out_dir = loaded.output_dir if out is None else out.expanduser().resolve()
         chosen = tuple(dict.fromkeys(f.value for f in formats)) if formats else loaded.formats
         check_output_paths(loaded, out_dir, chosen)
-        dataset = load_data(loaded)
-        result = run_spec(loaded, dataset)
+        result = run_spec(loaded, group_data(loaded))
         if not quiet:
             render_run(make_console(), result)
         written = write_outputs(result, out_dir, chosen)
@@ -180,7 +179,7 @@ def check(spec: SpecArg) -> None:
     Example:  strativ check specs/demo.yaml
     """
     with _boundary() as err:
-        from .loading import load_data
+        from .grouped import group_data
         from .render import render_check, render_warnings
         from .results import check_output_paths
         from .runner import check_with_core, data_warnings, design_probabilities, summarize_design
@@ -188,7 +187,7 @@ def check(spec: SpecArg) -> None:
 
         loaded = load_spec(spec)
         check_output_paths(loaded, loaded.output_dir, loaded.formats)
-        dataset = load_data(loaded)
+        dataset = group_data(loaded)
         probabilities = design_probabilities(loaded, dataset)
         summary = summarize_design(loaded, dataset)
         design_notes = check_with_core(loaded, dataset, probabilities)

@@ -13,7 +13,7 @@ from typing import TYPE_CHECKING, Any
 from strativ.estimators import Comparison
 from strativ.estimators.options import WEAK_FIRST_STAGE_F
 
-from .loading import Dataset
+from .grouped import GroupedData
 from .spec import Spec
 
 if TYPE_CHECKING:
@@ -67,7 +67,7 @@ def _listed(items: Sequence[str]) -> str:
     return text + (f" and {len(items) - _LISTED} more" if len(items) > _LISTED else "")
 
 
-def data_warnings(spec: Spec, dataset: Dataset) -> list[str]:
+def data_warnings(spec: Spec, dataset: GroupedData) -> list[str]:
     """Return the warnings known before fitting: unused covariates, the clustered variance
     form, dropped rows.
 
@@ -75,8 +75,8 @@ def data_warnings(spec: Spec, dataset: Dataset) -> list[str]:
     ----------
     spec : Spec
         The validated spec.
-    dataset : Dataset
-        The loaded rows.
+    dataset : GroupedData
+        The run's data.
 
     Returns
     -------

@@ -22,7 +22,7 @@ from strativ.estimators.options import USES_ASSIGNMENT, USES_SAMPLING, WEAK_FIRS
 
 from .cautions import variance_used
 from .console import make_console, render_error
-from .loading import Dataset
+from .grouped import GroupedData
 from .reading import (
     ASSUMPTIONS,
     ESTIMATOR_NAMES,
@@ -116,7 +116,7 @@ def _share(value: float | None) -> str:
         else f"{value * 100:.1f}%"
 
 
-def _header(console: Console, spec: Spec, dataset: Dataset) -> None:
+def _header(console: Console, spec: Spec, dataset: GroupedData) -> None:
     console.print(_t(spec.title, "bold"))
     files = ", ".join(f"{f.path.name} ({f.rows:,} rows)" for f in dataset.files)
     console.print(Text.assemble("data      ", _t(files)))
@@ -246,7 +246,7 @@ def render_run(console: Console, run: Run) -> None:
     console.print(_t(REVIEW))
 
 
-def render_check(console: Console, spec: Spec, dataset: Dataset, summary: DesignSummary,
+def render_check(console: Console, spec: Spec, dataset: GroupedData, summary: DesignSummary,
                  probabilities: dict[Any, float] | None) -> None:
     """Print the design summary of `strativ check`.
 
@@ -256,8 +256,8 @@ def render_check(console: Console, spec: Spec, dataset: Dataset, summary: Design
         The stdout console.
     spec : Spec
         The validated spec.
-    dataset : Dataset
-        The loaded rows.
+    dataset : GroupedData
+        The run's data.
     summary : DesignSummary
         Strata, offer shares and take-up by arm.
     probabilities : dict or None

@@ -27,6 +27,7 @@ from strativ.estimators import (
 from .cautions import data_warnings, fit_warnings, offer_count_warnings, variance_used
 from .core_errors import located_error
 from .errors import DataError
+from .grouped import GroupedData, from_rows
 from .loading import Dataset
 from .spec import Spec, suggest
 
@@ -87,8 +88,8 @@ class Run:
 
     spec: Spec
     """The validated spec."""
-    dataset: Dataset
-    """The rows after the data rules."""
+    dataset: GroupedData
+    """The run's data as group moments, with fingerprints and drop counts."""
     offer_probability: dict[Any, float] | None
     """Design probabilities passed to the estimators (None: estimated)."""
     outcomes: tuple[OutcomeResult, ...]
@@ -130,45 +131,72 @@ class DesignSummary:
 
 
 @contextmanager
-def _floating_point_guard(name: str, values: np.ndarray) -> Iterator[None]:
+def _floating_point_guard(name: str, largest: float) -> Iterator[None]:
     """Stop with a data error when the core's arithmetic overflows or loses its meaning.
 
     The core never warns on sound input; a floating-point warning means its numbers would
     be inf or NaN (in practice: outcome values too large to square in double precision).
+    `largest` is the outcome's largest absolute value, quoted in the message.
     """
     with warnings.catch_warnings():
         warnings.simplefilter("error", RuntimeWarning)
         try:
             yield
         except (RuntimeWarning, FloatingPointError) as exc:
-            finite = values[np.isfinite(values)]
-            largest = float(np.abs(finite).max()) if finite.size else 0.0
             raise DataError(None, name, (), f"the estimators' arithmetic failed on this "
                             f"outcome ({exc}); its largest absolute value is {largest:.3g}",
                             "rescale the outcome (divide it by a power of ten) so that its "
                             "values stay well below 1e+50") from None
 
 
-def _cells(dataset: Dataset, outcome: np.ndarray, keep: np.ndarray, *, spec: Spec) -> CellTable:
-    """The core's cell table of the kept rows, with the cluster column whenever the spec
-    names one (every variance flavour then reads the clusters)."""
+def _kept_rows(dataset: Dataset, outcome: str | None) -> np.ndarray:
+    """Dataset rows the core sees for `outcome` (None: every row)."""
+    if outcome is None:
+        return np.arange(dataset.n_rows)
+    return np.flatnonzero(~np.isnan(dataset.outcomes[outcome]))
+
+
+def _row_cells(dataset: Dataset, outcome: str | None) -> CellTable:
+    """`build_cells` on the rows, to let the core name the unit it refuses."""
+    keep = _kept_rows(dataset, outcome)
+    values = np.zeros(dataset.n_rows) if outcome is None else dataset.outcomes[outcome]
+    return build_cells(values[keep], dataset.take_up[keep], dataset.offer[keep],
+                       dataset.stratum[keep],
+                       cluster=None if dataset.cluster is None else dataset.cluster[keep])
+
+
+def _located(exc: EstimatorError, spec: Spec, data: GroupedData, outcome: str | None,
+             probabilities: dict[Any, float] | None = None) -> Exception:
+    """The located error for what the core refused: the rows name the file and row."""
+    dataset = data.rows()
+    return located_error(exc, spec, dataset, rows=_kept_rows(dataset, outcome),
+                         probabilities=probabilities)
+
+
+def _cells(data: GroupedData, outcome: str | None, *, spec: Spec) -> CellTable:
+    """The core's cell table of the rows with `outcome` (None: all kept rows), with the
+    cluster column whenever the spec names one (every variance flavour then reads it)."""
     try:
-        return build_cells(outcome[keep], dataset.take_up[keep], dataset.offer[keep],
-                           dataset.stratum[keep],
-                           cluster=None if dataset.cluster is None else dataset.cluster[keep])
+        return data.cells(outcome)
     except EstimatorError as exc:
-        raise located_error(exc, spec, dataset, rows=np.flatnonzero(keep)) from None
+        dataset = data.rows()
+        try:
+            _row_cells(dataset, outcome)
+        except EstimatorError as row_exc:
+            raise located_error(row_exc, spec, dataset,
+                                rows=_kept_rows(dataset, outcome)) from None
+        raise _located(exc, spec, data, outcome) from None
 
 
-def summarize_design(spec: Spec, dataset: Dataset) -> DesignSummary:
+def summarize_design(spec: Spec, data: GroupedData) -> DesignSummary:
     """Describe strata, offer shares and take-up by arm, without fitting.
 
     Parameters
     ----------
     spec : Spec
         The validated spec.
-    dataset : Dataset
-        The loaded rows.
+    data : GroupedData
+        The run's data.
 
     Returns
     -------
@@ -181,8 +209,7 @@ def summarize_design(spec: Spec, dataset: Dataset) -> DesignSummary:
         When no stratum has both offered and not-offered rows, or (with a cluster column)
         the core finds a cluster that spans (stratum, offer) cells.
     """
-    zeros = np.zeros(dataset.n_rows)
-    cells = _cells(dataset, zeros, np.ones(dataset.n_rows, dtype=bool), spec=spec)
+    cells = _cells(data, None, spec=spec)
     reasons = {e.label: e.reason for e in excluded_strata(cells)}
     strata = []
     for k, label in enumerate(cells.labels):
@@ -202,20 +229,26 @@ def summarize_design(spec: Spec, dataset: Dataset) -> DesignSummary:
         take_up_offered=float((n[:, 1] * cells.mean_take_up[:, 1]).sum() / max(n[:, 1].sum(), 1)),
         take_up_not_offered=float((n[:, 0] * cells.mean_take_up[:, 0]).sum()
                                   / max(n[:, 0].sum(), 1)),
-        missing_outcomes=tuple((name, int(np.isnan(values).sum()))
-                               for name, values in dataset.outcomes.items()),
+        missing_outcomes=tuple((name, data.missing(name)) for name in data.outcomes),
     )
 
 
-def design_probabilities(spec: Spec, dataset: Dataset) -> dict[Any, float] | None:
+def _sorted(labels: list[Any]) -> list[Any]:
+    try:
+        return sorted(labels)
+    except TypeError:
+        return labels
+
+
+def design_probabilities(spec: Spec, data: GroupedData) -> dict[Any, float] | None:
     """Resolve the spec's `design.offer_probability` into {stratum label: probability}.
 
     Parameters
     ----------
     spec : Spec
         The validated spec.
-    dataset : Dataset
-        The loaded rows.
+    data : GroupedData
+        The run's data.
 
     Returns
     -------
@@ -231,11 +264,11 @@ def design_probabilities(spec: Spec, dataset: Dataset) -> dict[Any, float] | Non
         When the probability column is not constant within a stratum.
     """
     source = spec.offer_probability
-    labels = list(dict.fromkeys(dataset.stratum.tolist()))
+    labels = _sorted(data.labels)
     if source.source == "estimated":
         return None
     if source.source == "column":
-        return _column_probabilities(spec, dataset, labels)
+        return _column_probabilities(spec, data, labels)
     by_text = {str(label): label for label in labels}
     out: dict[Any, float] = {}
     for key, prob in source.by_stratum:
@@ -246,9 +279,7 @@ def design_probabilities(spec: Spec, dataset: Dataset) -> dict[Any, float] | Non
                              f"offer_probability names stratum '{key}', which is not in the "
                              "data", hint)
         out[by_text[key]] = prob
-    arms: dict[Any, set[int]] = {}
-    for label, offer in zip(dataset.stratum.tolist(), dataset.offer.tolist(), strict=True):
-        arms.setdefault(label, set()).add(offer)
+    arms = data.arms()
     absent = [str(label) for label in labels if label not in out and len(arms[label]) == 2]
     if absent:
         raise spec.error(("design", "offer_probability"),
@@ -259,7 +290,11 @@ def design_probabilities(spec: Spec, dataset: Dataset) -> dict[Any, float] | Non
     return out
 
 
-def _column_probabilities(spec: Spec, dataset: Dataset, labels: list[Any]) -> dict[Any, float]:
+def _column_probabilities(spec: Spec, data: GroupedData, labels: list[Any]) -> dict[Any, float]:
+    ranges = data.probability_ranges()
+    if all(lo == hi for lo, hi in ranges.values()):
+        return {label: ranges[label][0] for label in labels}
+    dataset = data.rows()
     column = spec.offer_probability.column
     values = dataset.offer_probability
     assert values is not None and column is not None
@@ -271,37 +306,24 @@ def _column_probabilities(spec: Spec, dataset: Dataset, labels: list[Any]) -> di
                             f"'{label}': {float(values[j])!r} in {dataset.where(j)} but "
                             f"{float(values[i])!r} in {dataset.where(i)}",
                             "give every row of a stratum the same design probability")
-    return {label: float(values[first[label]]) for label in labels}
+    raise DataError(None, column, (), "the design probability differs within a stratum",
+                    "give every row of a stratum the same design probability")
 
 
-def _attrition(outcome: str, values: np.ndarray, dataset: Dataset) -> tuple[AttritionCell, ...]:
-    missing = np.isnan(values)
-    if not missing.any():
-        return ()
-    counts: dict[tuple[Any, int], list[int]] = {}
-    for label, offer, miss in zip(dataset.stratum.tolist(), dataset.offer.tolist(),
-                                  missing.tolist(), strict=True):
-        cell = counts.setdefault((label, offer), [0, 0])
-        cell[0] += miss
-        cell[1] += 1
-    try:
-        keys = sorted(counts)
-    except TypeError:
-        keys = list(counts)
+def _attrition(outcome: str, data: GroupedData) -> tuple[AttritionCell, ...]:
     return tuple(AttritionCell(outcome, label, "offered" if offer else "not_offered", m, n)
-                 for (label, offer) in keys for m, n in [counts[(label, offer)]] if m)
+                 for label, offer, m, n in data.missing_by_arm(outcome))
 
 
-def _fit_outcome(spec: Spec, dataset: Dataset, name: str,
+def _fit_outcome(spec: Spec, data: GroupedData, name: str,
                  probabilities: dict[Any, float] | None) -> OutcomeResult:
     """`fit_all` on the rows that have outcome `name`; the core's refusals become errors
     located in the spec or the data."""
-    values = dataset.outcomes[name]
-    keep = ~np.isnan(values)
-    if not keep.any():
+    missing = data.missing(name)
+    if missing == data.n_rows:
         raise DataError(None, name, (), "the outcome is missing in every row")
-    with _floating_point_guard(name, values):
-        cells = _cells(dataset, values, keep, spec=spec)
+    with _floating_point_guard(name, data.largest(name)):
+        cells = _cells(data, name, spec=spec)
         present = set(cells.labels)
         mapping = None if probabilities is None else \
             {k: v for k, v in probabilities.items() if k in present}
@@ -310,13 +332,11 @@ def _fit_outcome(spec: Spec, dataset: Dataset, name: str,
                                  assignment=spec.assignment, sampling=spec.sampling,
                                  level=spec.level, offer_probability=mapping)
         except EstimatorError as exc:
-            raise located_error(exc, spec, dataset, rows=np.flatnonzero(keep),
-                                probabilities=mapping) from None
-    return OutcomeResult(name, cells, comparison, int((~keep).sum()),
-                         _attrition(name, values, dataset))
+            raise _located(exc, spec, data, name, probabilities=mapping) from None
+    return OutcomeResult(name, cells, comparison, missing, _attrition(name, data))
 
 
-def check_with_core(spec: Spec, dataset: Dataset,
+def check_with_core(spec: Spec, data: GroupedData,
                     probabilities: dict[Any, float] | None) -> list[str]:
     """Let the core apply every rule `strativ run` meets, and return the design warnings.
 
@@ -328,8 +348,8 @@ def check_with_core(spec: Spec, dataset: Dataset,
     ----------
     spec : Spec
         The validated spec.
-    dataset : Dataset
-        The loaded rows.
+    data : GroupedData
+        The run's data.
     probabilities : dict or None
         The resolved design probabilities.
 
@@ -343,20 +363,21 @@ def check_with_core(spec: Spec, dataset: Dataset,
     SpecError, DataError
         Where the core refuses the spec or the data, located as in `run_spec`.
     """
-    name = next(iter(dataset.outcomes))
-    result = _fit_outcome(spec, dataset, name, probabilities)
+    name = data.outcomes[0]
+    result = _fit_outcome(spec, data, name, probabilities)
     return offer_count_warnings(name, result.comparison)
 
 
-def run_spec(spec: Spec, dataset: Dataset) -> Run:
+def run_spec(spec: Spec, data: GroupedData | Dataset) -> Run:
     """Fit every estimator of `spec` on every outcome.
 
     Parameters
     ----------
     spec : Spec
         The validated spec.
-    dataset : Dataset
-        The rows after the data rules.
+    data : GroupedData or Dataset
+        The run's data as group moments (`grouped.group_data`), or rows already read by
+        the row reader (`loading.load_data`), which are grouped first.
 
     Returns
     -------
@@ -372,7 +393,9 @@ def run_spec(spec: Spec, dataset: Dataset) -> Run:
         that span strata), an outcome is missing in every row, or the core's arithmetic
         overflows on an outcome (values far too large for double precision).
     """
-    probabilities = design_probabilities(spec, dataset)
-    results = [_fit_outcome(spec, dataset, name, probabilities) for name in dataset.outcomes]
-    return Run(spec, dataset, probabilities, tuple(results),
-               tuple(data_warnings(spec, dataset) + fit_warnings(results)))
+    if isinstance(data, Dataset):
+        data = from_rows(spec, data)
+    probabilities = design_probabilities(spec, data)
+    results = [_fit_outcome(spec, data, name, probabilities) for name in data.outcomes]
+    return Run(spec, data, probabilities, tuple(results),
+               tuple(data_warnings(spec, data) + fit_warnings(results)))

@@ -14,6 +14,7 @@ if TYPE_CHECKING:
     from .design import excluded_strata
     from .errors import DegenerateDesignError, EstimatorError, InputError
     from .fitting import fit, fit_all
+    from .group_sql import group_query
     from .moments import cells_from_moments, moment_query
     from .options import ESTIMATORS
     from .results import (
@@ -45,6 +46,7 @@ _LAZY = {
     "fit": "fitting",
     "fit_all": "fitting",
     "cells_from_moments": "moments",
+    "group_query": "group_sql",
     "moment_query": "moments",
     "Comparison": "results",
     "ConfidenceSet": "results",
@@ -85,6 +87,7 @@ __all__ = [
     "build_cells",
     "cells_from_frame",
     "cells_from_moments",
+    "group_query",
     "excluded_strata",
     "fit",
     "fit_all",

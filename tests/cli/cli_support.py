@@ -3,12 +3,16 @@
 from __future__ import annotations
 
 import json
+import sys
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from typer.testing import Result
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+from core_support import assert_close  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[2]
 DEMO_SPEC = REPO / "specs" / "demo.yaml"
@@ -99,3 +103,13 @@ def assert_clean_failure(result: Result, code: int, *fragments: str) -> None:
     flat = " ".join(result.stderr.split())
     for fragment in fragments:
         assert fragment in flat, (fragment, result.stderr)
+
+
+def assert_same_numbers(actual: Any, expected: Any) -> None:
+    """Recursive comparison of a run's numbers with the core's on the same rows.
+
+    The command line reads group moments that DuckDB sums in its own order, the reference
+    `build_cells` sums rows in theirs: the two agree to rounding, 1e-12 relative (absolute
+    below 1), and every label, count and flag exactly.
+    """
+    assert_close(actual, expected, rtol=1e-12)

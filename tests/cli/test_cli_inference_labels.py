@@ -8,7 +8,7 @@ import json
 
 import jsonschema
 import pandas as pd
-from cli_support import MINIMAL_SPEC, Study, study_rows, write_csv
+from cli_support import MINIMAL_SPEC, Study, assert_same_numbers, study_rows, write_csv
 
 from strativ.cli.reading import format_set
 from strativ.cli.results import load_schema
@@ -61,7 +61,8 @@ def test_a_two_ray_set_prints_as_a_union_and_round_trips_in_results_json(study: 
     expected = _roundtrip(_fit(study).to_dict())["estimates"]
     for got, want in zip(doc["estimates"], expected, strict=True):
         stored = got["confidence_set"]
-        assert stored == want["confidence_set"] and stored["shape"] == "two_rays"
+        assert_same_numbers(stored, want["confidence_set"])
+        assert stored["shape"] == "two_rays"
         assert stored["lower"] is None and stored["upper"] is None
         assert stored["left_ray_end"] < stored["right_ray_start"]
         text = format_set(ConfidenceSet(**stored))
@@ -101,7 +102,8 @@ def test_results_json_carries_the_new_fields_and_validates(study: Study, invoke)
     # reference: strativ.estimators.fit_all(...).to_dict() on the same rows
     want = _roundtrip(_fit(study).to_dict())
     got = doc["comparisons"][0]
-    assert got["gap"] == want["gap"] and got["constant_effect"] == want["constant_effect"]
+    assert_same_numbers(got["gap"], want["gap"])
+    assert_same_numbers(got["constant_effect"], want["constant_effect"])
     assert got["gap"]["complier_estimator"] == "interacted"
     assert set(got["constant_effect"]) >= {"fitted_common_effect", "p_value_asymptotic",
                                            "draws", "seed"}
@@ -142,7 +144,7 @@ def test_a_cluster_column_is_used_by_robust(study: Study, invoke) -> None:
     clustered = _roundtrip(_fit(study, cluster=True, variance="robust").to_dict())["estimates"]
     plain = _roundtrip(_fit(study, variance="robust").to_dict())["estimates"]
     got = [{k: v for k, v in e.items() if k != "outcome"} for e in doc["estimates"]]
-    assert got == clustered
+    assert_same_numbers(got, clustered)
     assert [e["std_error"] for e in got] != [e["std_error"] for e in plain]
     flat = " ".join(result.stderr.split())
     assert "cluster column 'household' is used: variance 'robust' is the cluster-robust " \

@@ -18,6 +18,7 @@ from cli_support import (
     REPO,
     Study,
     assert_clean_failure,
+    assert_same_numbers,
     study_rows,
     write_csv,
 )
@@ -135,14 +136,12 @@ def test_results_numbers_equal_the_core_exactly(study: Study, invoke) -> None:
     # reference: strativ.estimators.fit_all on the same rows, read independently with pandas
     comparison = _core(pd.read_csv(study.data), "y")
     expected = _roundtrip(comparison.to_dict())
-    assert [{k: v for k, v in e.items() if k != "outcome"} for e in doc["estimates"]] == expected[
-        "estimates"
-    ]
-    assert [{k: v for k, v in r.items() if k != "outcome"} for r in doc["strata"]] == expected[
-        "strata"
-    ]["rows"]
-    assert doc["comparisons"][0]["gap"] == expected["gap"]
-    assert doc["comparisons"][0]["size_weighted"] == expected["size_weighted"]
+    assert_same_numbers([{k: v for k, v in e.items() if k != "outcome"}
+                         for e in doc["estimates"]], expected["estimates"])
+    assert_same_numbers([{k: v for k, v in r.items() if k != "outcome"}
+                         for r in doc["strata"]], expected["strata"]["rows"])
+    assert_same_numbers(doc["comparisons"][0]["gap"], expected["gap"])
+    assert_same_numbers(doc["comparisons"][0]["size_weighted"], expected["size_weighted"])
 
 
 def test_strata_csv_holds_the_core_table_in_full_precision(study: Study, invoke) -> None:
@@ -153,8 +152,8 @@ def test_strata_csv_holds_the_core_table_in_full_precision(study: Study, invoke)
     rows = _core(pd.read_csv(study.data), "y").strata.rows
     assert [r["stratum"] for r in table] == [r.label for r in rows]
     for line, row in zip(table, rows, strict=True):
-        assert float(line["effect"]) == row.effect
-        assert float(line["weight_fixed_effects"]) == row.weight_fixed_effects
+        assert_same_numbers(float(line["effect"]), row.effect)
+        assert_same_numbers(float(line["weight_fixed_effects"]), row.weight_fixed_effects)
         assert int(line["n_offered"]) == row.n_offered and line["used"] == "true"
 
 
@@ -176,7 +175,7 @@ def test_options_reach_the_core(study: Study, invoke) -> None:
         sampling="fixed",
     )
     got = [{k: v for k, v in e.items() if k != "outcome"} for e in study.results()["estimates"]]
-    assert got == _roundtrip(expected.to_dict())["estimates"]
+    assert_same_numbers(got, _roundtrip(expected.to_dict())["estimates"])
 
 
 def test_design_probabilities_from_mapping_and_column_agree(study: Study, invoke) -> None:
@@ -195,11 +194,12 @@ def test_design_probabilities_from_mapping_and_column_agree(study: Study, invoke
     # reference: strativ.estimators.fit_all with the design probabilities
     expected = _core(pd.read_csv(study.data), "y", offer_probability=design)
     for doc in (from_mapping, from_column):
-        assert [
-            {k: v for k, v in e.items() if k != "outcome"} for e in doc["estimates"]
-        ] == _roundtrip(expected.to_dict())["estimates"]
+        assert_same_numbers([{k: v for k, v in e.items() if k != "outcome"}
+                             for e in doc["estimates"]],
+                            _roundtrip(expected.to_dict())["estimates"])
+    # by construction: one entry per stratum, in label order as in the strata table
     assert from_column["offer_probability"] == [
-        {"stratum": k, "probability": v} for k, v in design.items()
+        {"stratum": k, "probability": design[k]} for k in sorted(design)
     ]
 
 
@@ -220,7 +220,7 @@ def test_mapping_with_unknown_stratum_is_a_spec_error(study: Study, invoke) -> N
     assert_clean_failure(
         invoke("run", study.spec, "--out", study.out),
         2,
-        "offer_probability gives no probability for stratum(s) 'south'",
+        "offer_probability gives no probability for stratum(s) 'east', 'south', 'west'",
     )
     assert not study.out.exists()
 
@@ -411,7 +411,8 @@ def test_cluster_variance_passes_clusters_to_the_core(study: Study, invoke) -> N
     # reference: strativ.estimators.fit_all with the cluster variance on the same rows
     expected = _roundtrip(fit_all(cells, variance="cluster").to_dict())["estimates"]
     doc = study.results()
-    assert [{k: v for k, v in e.items() if k != "outcome"} for e in doc["estimates"]] == expected
+    assert_same_numbers([{k: v for k, v in e.items() if k != "outcome"}
+                         for e in doc["estimates"]], expected)
     assert any("covariates age were checked and recorded but not used" in w
                for w in doc["warnings"])
 

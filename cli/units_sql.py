@@ -1,0 +1,248 @@
+"""Show a spec's data files to DuckDB as one view of units, each role in its checked form.
+
+DuckDB reads CSV (plain, tab-separated, gzip), Parquet, and the Arrow tables of Stata, SPSS
+and Excel files (`foreign.read_foreign`). Each role becomes one column of the view
+`UNITS_VIEW`, written by the same rules as the row reader (`values.py`):
+
+- offer and take-up: 1/0 from any number equal to 1 or 0 or from true/false; NULL where
+  missing; 2 for any other value (the run then asks the row reader for the message);
+- outcomes, covariates and a probability column: DOUBLE, NULL where missing, with a flag
+  column ``bad_<name>`` = 1 where a value is present but not a finite plain number;
+- stratum parts and cluster: the value as read (text as written), NULL where missing; the
+  labels are made from the few distinct values in Python, by the row reader's rule.
+
+Text cells count as missing when, trimmed and in lower case, they are one of
+`values.MISSING_TOKENS`. Nothing here computes a statistic: `grouped.py` runs the one
+GROUP BY of `strativ.estimators.group_query` over the view.
+"""
+
+from __future__ import annotations
+
+import csv
+import gzip
+import io
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from .spec import Spec
+from .values import MISSING_TOKENS
+
+__all__ = ["UNITS_VIEW", "Roles", "UnreadableError", "roles_of", "units_view"]
+
+UNITS_VIEW = "strativ_units"
+"""The view of checked units."""
+
+_FOREIGN = (".dta", ".sav", ".xlsx")
+_PARQUET = (".parquet", ".pq")
+_NUMBER = r"^\s*[-+]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][-+]?[0-9]+)?\s*$"
+
+
+class UnreadableError(Exception):
+    """DuckDB cannot show the files as the spec describes; the row reader says why."""
+
+
+@dataclass(frozen=True, slots=True)
+class Roles:
+    """View column names of each role, in spec order."""
+
+    strata: tuple[str, ...]
+    outcomes: tuple[str, ...]
+    covariates: tuple[str, ...]
+    cluster: str | None
+    probability: str | None
+
+    @property
+    def keys(self) -> tuple[str, ...]:
+        """Group columns: file, stratum parts, offer, take-up[, cluster][, probability gap]."""
+        out = ["file", *self.strata, "offer", "take_up"]
+        if self.cluster:
+            out.append(self.cluster)
+        if self.probability:
+            out.append("prob_missing")
+        return tuple(out)
+
+    @property
+    def flags(self) -> tuple[str, ...]:
+        """Counted flag columns: one per numeric role."""
+        names = [*self.outcomes, *self.covariates]
+        if self.probability:
+            names.append(self.probability)
+        return tuple(f"bad_{n}" for n in names)
+
+
+def roles_of(spec: Spec) -> Roles:
+    """The view's column names for the roles of `spec`."""
+    cols = spec.columns
+    return Roles(
+        strata=tuple(f"s{i}" for i in range(len(cols.stratum))),
+        outcomes=tuple(f"y{i}" for i in range(len(cols.outcome))),
+        covariates=tuple(f"x{i}" for i in range(len(cols.covariates))),
+        cluster="cluster" if cols.cluster else None,
+        probability="prob" if spec.offer_probability.column else None,
+    )
+
+
+def _q(name: str) -> str:
+    return '"' + name.replace('"', '""') + '"'
+
+
+def _literal(text: str) -> str:
+    return "'" + text.replace("'", "''") + "'"
+
+
+_TOKENS = ", ".join(_literal(t) for t in sorted(MISSING_TOKENS))
+
+
+def _text_missing(c: str) -> str:
+    return f"({c} IS NULL OR lower(trim({c})) IN ({_TOKENS}))"
+
+
+def _is_text(kind: str) -> bool:
+    return kind.upper() in ("VARCHAR", "TEXT", "STRING") or kind.upper().startswith("VARCHAR")
+
+
+def _is_numeric(kind: str) -> bool:
+    k = kind.upper()
+    return k in ("BOOLEAN", "TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT",
+                 "USMALLINT", "UINTEGER", "UBIGINT", "FLOAT", "DOUBLE", "REAL") or \
+        k.startswith("DECIMAL")
+
+
+def _binary(c: str, kind: str) -> str:
+    if _is_text(kind):
+        t = f"lower(trim({c}))"
+        number = f"(regexp_full_match({c}, {_literal(_NUMBER)}) AND " \
+                 f"TRY_CAST(trim({c}) AS DOUBLE)"
+        return (f"CASE WHEN {_text_missing(c)} THEN NULL WHEN {t} = 'true' THEN 1 "
+                f"WHEN {t} = 'false' THEN 0 WHEN {number} = 1) THEN 1 "
+                f"WHEN {number} = 0) THEN 0 ELSE 2 END")
+    if kind.upper() == "BOOLEAN":
+        return f"CAST({c} AS INTEGER)"
+    if _is_numeric(kind):
+        d = f"CAST({c} AS DOUBLE)"
+        return f"CASE WHEN {c} IS NULL OR isnan({d}) THEN NULL WHEN {d} = 1 THEN 1 " \
+               f"WHEN {d} = 0 THEN 0 ELSE 2 END"
+    return "2"
+
+
+def _number(c: str, kind: str) -> tuple[str, str]:
+    """(value, bad flag) expressions of a numeric role."""
+    if _is_text(kind):
+        t = f"lower(trim({c}))"
+        plain = f"(regexp_full_match({c}, {_literal(_NUMBER)}) AND " \
+                f"isfinite(TRY_CAST(trim({c}) AS DOUBLE)))"
+        value = (f"CASE WHEN {_text_missing(c)} THEN NULL WHEN {t} = 'true' THEN 1.0 "
+                 f"WHEN {t} = 'false' THEN 0.0 WHEN {plain} THEN CAST(trim({c}) AS DOUBLE) "
+                 "ELSE NULL END")
+        bad = (f"CASE WHEN {_text_missing(c)} OR {t} IN ('true', 'false') OR {plain} "
+               "THEN 0 ELSE 1 END")
+        return value, bad
+    if _is_numeric(kind):
+        d = f"CAST({c} AS DOUBLE)"
+        value = f"CASE WHEN {c} IS NULL OR isnan({d}) THEN NULL ELSE {d} END"
+        bad = f"CASE WHEN {c} IS NOT NULL AND isinf({d}) THEN 1 ELSE 0 END"
+        return value, bad
+    return "NULL", f"CASE WHEN {c} IS NULL THEN 0 ELSE 1 END"
+
+
+def _label(c: str, kind: str) -> str:
+    if _is_text(kind):
+        return f"CASE WHEN {_text_missing(c)} THEN NULL ELSE {c} END"
+    if _is_numeric(kind) and kind.upper() != "BOOLEAN":
+        return f"CASE WHEN isnan(CAST({c} AS DOUBLE)) THEN NULL ELSE {c} END"
+    return c
+
+
+def _csv_header(path: Path, delimiter: str) -> list[str]:
+    opener: Any = gzip.open if path.name.lower().endswith(".gz") else open
+    with opener(path, "rt", encoding="utf-8-sig", newline="") as handle:
+        first = handle.readline()
+    return next(csv.reader(io.StringIO(first), delimiter=delimiter), [])
+
+
+def _relation(connection: Any, path: Path, index: int) -> tuple[str, list[str]]:
+    """Register file `index` as a view; return its name and header."""
+    name = f"strativ_file_{index}"
+    lower = path.name.lower()
+    if lower.endswith(_PARQUET):
+        relation = connection.read_parquet(str(path))
+        header = list(relation.columns)
+    elif lower.endswith(_FOREIGN):
+        from .foreign import read_foreign
+
+        table = read_foreign(path)
+        connection.register(name + "_arrow", table)
+        relation = connection.table(name + "_arrow")
+        header = list(table.column_names)
+    else:
+        tabs = lower.endswith((".tsv", ".tsv.gz", ".tab"))
+        delimiter = "\t" if tabs else ","
+        header = _csv_header(path, delimiter)
+        relation = connection.read_csv(str(path), header=True, all_varchar=True,
+                                       delimiter=delimiter, quotechar='"', escapechar='"')
+        if list(relation.columns) != header:
+            raise UnreadableError(f"{path.name}: header read differently")
+    relation.create_view(name)
+    return name, header
+
+
+def units_view(connection: Any, spec: Spec) -> Roles:
+    """Create `UNITS_VIEW` over every data file of `spec` on `connection`.
+
+    Parameters
+    ----------
+    connection : duckdb.DuckDBPyConnection
+        An open connection.
+    spec : Spec
+        The validated spec.
+
+    Returns
+    -------
+    Roles
+        The view's column name of each role.
+
+    Raises
+    ------
+    UnreadableError
+        When a file cannot be read by DuckDB or lacks a column the spec names (or names one
+        twice); the row reader then gives the located message.
+    """
+    import duckdb
+
+    roles = roles_of(spec)
+    cols = spec.columns
+    selects = []
+    try:
+        for index, path in enumerate(spec.data):
+            name, header = _relation(connection, path, index)
+            kinds = dict(connection.execute(
+                f"SELECT column_name, column_type FROM (DESCRIBE {_q(name)})").fetchall())
+            wanted = [*cols.stratum, cols.offer, cols.take_up, *cols.outcome, *cols.covariates]
+            wanted += [c for c in (cols.cluster, spec.offer_probability.column) if c]
+            if any(header.count(w) != 1 for w in wanted):
+                raise UnreadableError(f"{path.name}: a column is missing or repeated")
+            parts = [f"{index} AS file"]
+            parts += [f"{_label(_q(c), kinds[c])} AS {s}"
+                      for c, s in zip(cols.stratum, roles.strata, strict=True)]
+            parts.append(f"{_binary(_q(cols.offer), kinds[cols.offer])} AS offer")
+            parts.append(f"{_binary(_q(cols.take_up), kinds[cols.take_up])} AS take_up")
+            if cols.cluster:
+                parts.append(f"{_label(_q(cols.cluster), kinds[cols.cluster])} AS cluster")
+            numeric = list(zip(cols.outcome, roles.outcomes, strict=True))
+            numeric += list(zip(cols.covariates, roles.covariates, strict=True))
+            if roles.probability:
+                numeric.append((spec.offer_probability.column, roles.probability))
+            for column, role in numeric:
+                value, bad = _number(_q(column), kinds[column])
+                parts += [f"{value} AS {role}", f"{bad} AS bad_{role}"]
+            if roles.probability:
+                value, _ = _number(_q(spec.offer_probability.column),
+                                   kinds[spec.offer_probability.column])
+                parts.append(f"({value}) IS NULL AS prob_missing")
+            selects.append(f"SELECT {', '.join(parts)} FROM {_q(name)}")
+        connection.execute(f"CREATE VIEW {UNITS_VIEW} AS " + "\nUNION ALL BY NAME\n".join(
+            selects))
+    except (duckdb.Error, UnicodeDecodeError, OSError, KeyError) as exc:
+        raise UnreadableError(str(exc)) from None
+    return roles

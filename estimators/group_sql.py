@@ -1,0 +1,151 @@
+"""The grouped moment query of a whole run: every outcome, every check, one GROUP BY.
+
+`moment_query` (moments.py) gives the moment table of one outcome. A run needs more from the
+same pass over the rows: the moments of several outcomes (each over the rows where it is
+present, so attrition is per outcome), the counts of values a check refuses, the largest
+magnitude of each outcome, and the range of a design-probability column, all per group of
+(key columns). This module writes that query once, from a list of `GroupColumn`; any SQL
+engine with common table expressions, ``IS NOT DISTINCT FROM`` and ``CAST(... AS DOUBLE)``
+runs it (DuckDB, Spark SQL).
+
+Each outcome is centred on its minimum within its centring group (the stratum) before
+summing, as in `moment_query`, so a large common level loses no precision.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+from .errors import InputError
+from .moments import _quote, _source_name
+
+__all__ = ["GroupColumn", "group_columns", "group_query"]
+
+
+@dataclass(frozen=True, slots=True)
+class GroupColumn:
+    """One result column of `group_query`."""
+
+    name: str
+    """Column name in the result."""
+    aggregate: str
+    """SQL aggregate over the group (the source columns quoted)."""
+
+
+def group_columns(
+    outcomes: Sequence[str], *, counted: Sequence[str] = (), ranged: Sequence[str] = ()
+) -> tuple[GroupColumn, ...]:
+    """The result columns of `group_query`, declared once.
+
+    Parameters
+    ----------
+    outcomes : sequence of str
+        Outcome columns of the source (numeric or NULL).
+    counted : sequence of str, default=()
+        Integer flag columns (0/1) whose sum per group is wanted (for example, values a
+        check refuses).
+    ranged : sequence of str, default=()
+        Numeric columns whose smallest and largest value per group are wanted.
+
+    Returns
+    -------
+    tuple of GroupColumn
+        ``n`` (rows); per outcome ``v``: ``n_v`` (rows where present), ``sum_v`` and
+        ``sum_v_sq`` (of ``v`` minus its centre), ``centre_v`` and ``max_abs_v``; per counted
+        flag ``f``: ``f``; per ranged column ``r``: ``min_r``, ``max_r``.
+    """
+    columns = [GroupColumn("n", "COUNT(*)")]
+    for v in outcomes:
+        q, c = _quote(v), _quote("centred_" + v)
+        columns += [
+            GroupColumn(f"n_{v}", f"COUNT({q})"),
+            GroupColumn(f"sum_{v}", f"SUM({c})"),
+            GroupColumn(f"sum_{v}_sq", f"SUM({c} * {c})"),
+            GroupColumn(f"centre_{v}", f"MIN({_quote('centre_' + v)})"),
+            GroupColumn(f"max_abs_{v}", f"MAX(ABS({q}))"),
+        ]
+    columns += [GroupColumn(f, f"SUM(CAST({_quote(f)} AS BIGINT))") for f in counted]
+    for r in ranged:
+        columns += [GroupColumn(f"min_{r}", f"MIN({_quote(r)})"),
+                    GroupColumn(f"max_{r}", f"MAX({_quote(r)})")]
+    return tuple(columns)
+
+
+def group_query(
+    source: str | Sequence[str],
+    *,
+    keys: Sequence[str],
+    centre_keys: Sequence[str],
+    outcomes: Sequence[str],
+    counted: Sequence[str] = (),
+    ranged: Sequence[str] = (),
+) -> str:
+    """The SQL text of the one GROUP BY that summarises a run's rows.
+
+    Parameters
+    ----------
+    source : str or sequence of str
+        Table or view of one row per unit (a sequence is a qualified name).
+    keys : sequence of str
+        Group columns, in order (e.g. file, stratum parts, offer, take-up, cluster).
+    centre_keys : sequence of str
+        The subset of `keys` within which each outcome is centred (the stratum parts).
+    outcomes : sequence of str
+        Numeric outcome columns; NULL where missing.
+    counted, ranged : sequence of str, default=()
+        As in `group_columns`.
+
+    Returns
+    -------
+    str
+        One query: a common table expression of per-stratum centres, the rows with each
+        outcome centred, and the GROUP BY. Its result has the key columns, then the columns
+        of `group_columns`.
+
+    Raises
+    ------
+    InputError
+        When a name is invalid (see `moment_query`), a centre key is not a key, or a column
+        is named twice.
+    """
+    names = [*keys, *outcomes, *counted, *ranged]
+    for name in names:
+        _quote(name)
+    repeated = sorted({n for n in names if names.count(n) > 1})
+    if repeated:
+        raise InputError("columns", f"column {repeated[0]!r} is named twice; name it once.")
+    if not keys or not set(centre_keys) <= set(keys):
+        raise InputError("centre_keys", "the centring columns must be group columns.")
+    table = _source_name(source)
+    centres, centred = _quote("strativ_centres"), _quote("strativ_centred")
+    if outcomes:
+        centre_select = ",\n".join(
+            [f"    {_quote(k)}" for k in centre_keys]
+            + [f"    MIN({_quote(v)}) AS {_quote('centre_' + v)}" for v in outcomes]
+        )
+        join = " AND ".join(
+            f"r.{_quote(k)} IS NOT DISTINCT FROM c.{_quote(k)}" for k in centre_keys
+        )
+        row_lines = ["    r.*"]
+        for v in outcomes:
+            centre = f"c.{_quote('centre_' + v)}"
+            row_lines += [f"    r.{_quote(v)} - {centre} AS {_quote('centred_' + v)}",
+                          f"    {centre} AS {_quote('centre_' + v)}"]
+        rows = ",\n".join(row_lines)
+        by = ", ".join(_quote(k) for k in centre_keys)
+        prefix = (
+            f"WITH {centres} AS (\n  SELECT\n{centre_select}\n  FROM {table}\n"
+            f"  GROUP BY {by}\n),\n"
+            f"{centred} AS (\n  SELECT\n{rows}\n"
+            f"  FROM {table} AS r\n  JOIN {centres} AS c ON {join}\n)\n"
+        )
+        body = centred
+    else:
+        prefix, body = "", table
+    groups = ", ".join(_quote(k) for k in keys)
+    sums = ",\n".join(
+        f"    {c.aggregate} AS {_quote(c.name)}"
+        for c in group_columns(outcomes, counted=counted, ranged=ranged)
+    )
+    return f"{prefix}SELECT\n    {groups},\n{sums}\nFROM {body}\nGROUP BY {groups}\n"
