@@ -153,7 +153,8 @@ class GroupedData:
 def _query(spec: Spec, roles: Roles) -> str:
     ranged = (roles.probability,) if roles.probability else ()
     return group_query(UNITS_VIEW, keys=roles.keys, centre_keys=roles.strata,
-                       outcomes=roles.outcomes, counted=roles.flags, ranged=ranged)
+                       outcomes=roles.outcomes, counted=roles.flags, ranged=ranged,
+                       total="FSUM")
 
 
 def group_data(spec: Spec) -> GroupedData:

@@ -8,8 +8,13 @@ and Excel files (`foreign.read_foreign`). Each role becomes one column of the vi
   missing; 2 for any other value (the run then asks the row reader for the message);
 - outcomes, covariates and a probability column: DOUBLE, NULL where missing, with a flag
   column ``bad_<name>`` = 1 where a value is present but not a finite plain number;
-- stratum parts and cluster: the value as read (text as written), NULL where missing; the
-  labels are made from the few distinct values in Python, by the row reader's rule.
+- stratum parts and cluster: the value as read (CSV: the text as written), NULL where
+  missing; the labels are made from the few distinct values in Python, by the row reader's
+  rule.
+
+DuckDB's sniffer types the other CSV columns; a column it reads as text (a gap written
+"n/a ", a stray word) goes through the text rules above, and a file it cannot read as
+sniffed goes to the row reader.
 
 Text cells count as missing when, trimmed and in lower case, they are one of
 `values.MISSING_TOKENS`. Nothing here computes a statistic: `grouped.py` runs the one
@@ -109,6 +114,11 @@ def _is_numeric(kind: str) -> bool:
         k.startswith("DECIMAL")
 
 
+def _is_integer(kind: str) -> bool:
+    return kind.upper() in ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT",
+                            "USMALLINT", "UINTEGER", "UBIGINT")
+
+
 def _binary(c: str, kind: str) -> str:
     if _is_text(kind):
         t = f"lower(trim({c}))"
@@ -119,6 +129,8 @@ def _binary(c: str, kind: str) -> str:
                 f"WHEN {number} = 0) THEN 0 ELSE 2 END")
     if kind.upper() == "BOOLEAN":
         return f"CAST({c} AS INTEGER)"
+    if _is_integer(kind):
+        return f"CASE WHEN {c} = 1 THEN 1 WHEN {c} = 0 THEN 0 WHEN {c} IS NOT NULL THEN 2 END"
     if _is_numeric(kind):
         d = f"CAST({c} AS DOUBLE)"
         return f"CASE WHEN {c} IS NULL OR isnan({d}) THEN NULL WHEN {d} = 1 THEN 1 " \
@@ -138,6 +150,8 @@ def _number(c: str, kind: str) -> tuple[str, str]:
         bad = (f"CASE WHEN {_text_missing(c)} OR {t} IN ('true', 'false') OR {plain} "
                "THEN 0 ELSE 1 END")
         return value, bad
+    if _is_integer(kind) or kind.upper() == "BOOLEAN":
+        return f"CAST({c} AS DOUBLE)", "0"
     if _is_numeric(kind):
         d = f"CAST({c} AS DOUBLE)"
         value = f"CASE WHEN {c} IS NULL OR isnan({d}) THEN NULL ELSE {d} END"
@@ -149,7 +163,7 @@ def _number(c: str, kind: str) -> tuple[str, str]:
 def _label(c: str, kind: str) -> str:
     if _is_text(kind):
         return f"CASE WHEN {_text_missing(c)} THEN NULL ELSE {c} END"
-    if _is_numeric(kind) and kind.upper() != "BOOLEAN":
+    if _is_numeric(kind) and kind.upper() != "BOOLEAN" and not _is_integer(kind):
         return f"CASE WHEN isnan(CAST({c} AS DOUBLE)) THEN NULL ELSE {c} END"
     return c
 
@@ -161,8 +175,17 @@ def _csv_header(path: Path, delimiter: str) -> list[str]:
     return next(csv.reader(io.StringIO(first), delimiter=delimiter), [])
 
 
-def _relation(connection: Any, path: Path, index: int) -> tuple[str, list[str]]:
-    """Register file `index` as a view; return its name and header."""
+_NULL_TEXT = sorted({t for token in MISSING_TOKENS
+                     for t in (token, token.upper(), token.capitalize())})
+"""Cells DuckDB's CSV reader takes as missing, so that a column with gaps keeps its type; other
+spellings of a missing token (mixed case, spaces) leave the column as text, where
+`_text_missing` finds them."""
+
+
+def _relation(connection: Any, path: Path, index: int,
+              labels: list[str]) -> tuple[str, list[str]]:
+    """Register file `index` as a view; return its name and header. Label columns of a CSV
+    file are read as text, exactly as written; DuckDB's sniffer types the others."""
     name = f"strativ_file_{index}"
     lower = path.name.lower()
     if lower.endswith(_PARQUET):
@@ -179,8 +202,9 @@ def _relation(connection: Any, path: Path, index: int) -> tuple[str, list[str]]:
         tabs = lower.endswith((".tsv", ".tsv.gz", ".tab"))
         delimiter = "\t" if tabs else ","
         header = _csv_header(path, delimiter)
-        relation = connection.read_csv(str(path), header=True, all_varchar=True,
-                                       delimiter=delimiter, quotechar='"', escapechar='"')
+        relation = connection.read_csv(
+            str(path), header=True, delimiter=delimiter, quotechar='"', escapechar='"',
+            dtype={c: "VARCHAR" for c in labels if c in header}, na_values=_NULL_TEXT)
         if list(relation.columns) != header:
             raise UnreadableError(f"{path.name}: header read differently")
     relation.create_view(name)
@@ -215,7 +239,8 @@ def units_view(connection: Any, spec: Spec) -> Roles:
     selects = []
     try:
         for index, path in enumerate(spec.data):
-            name, header = _relation(connection, path, index)
+            labels = [*cols.stratum, *([cols.cluster] if cols.cluster else [])]
+            name, header = _relation(connection, path, index, labels)
             kinds = dict(connection.execute(
                 f"SELECT column_name, column_type FROM (DESCRIBE {_q(name)})").fetchall())
             wanted = [*cols.stratum, cols.offer, cols.take_up, *cols.outcome, *cols.covariates]

@@ -34,7 +34,11 @@ class GroupColumn:
 
 
 def group_columns(
-    outcomes: Sequence[str], *, counted: Sequence[str] = (), ranged: Sequence[str] = ()
+    outcomes: Sequence[str],
+    *,
+    counted: Sequence[str] = (),
+    ranged: Sequence[str] = (),
+    total: str = "SUM",
 ) -> tuple[GroupColumn, ...]:
     """The result columns of `group_query`, declared once.
 
@@ -47,6 +51,10 @@ def group_columns(
         check refuses).
     ranged : sequence of str, default=()
         Numeric columns whose smallest and largest value per group are wanted.
+    total : str, default="SUM"
+        The engine's aggregate for the sums of centred values: ``SUM`` anywhere, or a
+        compensated sum (DuckDB's ``FSUM``), whose result does not depend on the order in
+        which parallel threads add their partial sums, so two runs give the same bits.
 
     Returns
     -------
@@ -60,8 +68,8 @@ def group_columns(
         q, c = _quote(v), _quote("centred_" + v)
         columns += [
             GroupColumn(f"n_{v}", f"COUNT({q})"),
-            GroupColumn(f"sum_{v}", f"SUM({c})"),
-            GroupColumn(f"sum_{v}_sq", f"SUM({c} * {c})"),
+            GroupColumn(f"sum_{v}", f"{total}({c})"),
+            GroupColumn(f"sum_{v}_sq", f"{total}({c} * {c})"),
             GroupColumn(f"centre_{v}", f"MIN({_quote('centre_' + v)})"),
             GroupColumn(f"max_abs_{v}", f"MAX(ABS({q}))"),
         ]
@@ -80,6 +88,7 @@ def group_query(
     outcomes: Sequence[str],
     counted: Sequence[str] = (),
     ranged: Sequence[str] = (),
+    total: str = "SUM",
 ) -> str:
     """The SQL text of the one GROUP BY that summarises a run's rows.
 
@@ -94,6 +103,8 @@ def group_query(
     outcomes : sequence of str
         Numeric outcome columns; NULL where missing.
     counted, ranged : sequence of str, default=()
+        As in `group_columns`.
+    total : str, default="SUM"
         As in `group_columns`.
 
     Returns
@@ -115,6 +126,8 @@ def group_query(
     repeated = sorted({n for n in names if names.count(n) > 1})
     if repeated:
         raise InputError("columns", f"column {repeated[0]!r} is named twice; name it once.")
+    if total.upper() not in ("SUM", "FSUM"):
+        raise InputError("total", f"expected SUM or FSUM, got {total!r}.")
     if not keys or not set(centre_keys) <= set(keys):
         raise InputError("centre_keys", "the centring columns must be group columns.")
     table = _source_name(source)
@@ -146,6 +159,6 @@ def group_query(
     groups = ", ".join(_quote(k) for k in keys)
     sums = ",\n".join(
         f"    {c.aggregate} AS {_quote(c.name)}"
-        for c in group_columns(outcomes, counted=counted, ranged=ranged)
+        for c in group_columns(outcomes, counted=counted, ranged=ranged, total=total)
     )
     return f"{prefix}SELECT\n    {groups},\n{sums}\nFROM {body}\nGROUP BY {groups}\n"
