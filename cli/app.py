@@ -196,6 +196,53 @@ def check(spec: SpecArg) -> None:
 
 
 @app.command()
+def cells(
+    spec: SpecArg,
+    out: Annotated[Path | None, typer.Option(
+        "--out", "-o", dir_okay=False, show_default=False,
+        help="Write the moment table here (.csv, or .parquet/.pq).")] = None,
+    sql: Annotated[bool, typer.Option(
+        "--sql", help="Print the query that makes the table on your own SQL engine.")] = False,
+    table: Annotated[str, typer.Option(
+        "--table", help="Table or view of unit rows the printed query reads.")] = "units",
+) -> None:
+    """Write the moment table of SPEC's rows (the only summary the estimators read), or print
+    the SQL that makes it, so that only aggregates need leave a secure room.
+
+    Example:  strativ cells specs/demo.yaml --out cells.csv
+    """
+    with _boundary() as err:
+        from .moment_table import moment_sql, write_moment_table
+        from .spec import load_spec
+
+        loaded = load_spec(spec)
+        if loaded.data_kind == "moments":
+            raise UsageError(f"{loaded.path.name} reads moment tables already",
+                             "run 'strativ cells' on a spec whose 'data' names unit rows")
+        if sql:
+            typer.echo(moment_sql(loaded, table), nl=False)
+            return
+        if out is None:
+            raise UsageError("say where to write the table with --out FILE, or print the "
+                             "query with --sql", "strativ cells SPEC --out cells.csv")
+        from .grouped import group_data
+
+        target = out.expanduser().resolve()
+        if target in loaded.data:
+            raise UsageError(f"{target.name} is an input of the spec",
+                             "write the moment table to a new file")
+        data = group_data(loaded)
+        try:
+            write_moment_table(data, target)
+        except OSError as exc:
+            raise UsageError(f"cannot write {target} ({exc.strerror})",
+                             "choose a writable folder") from None
+        err.print(Text.assemble("wrote ", Text(str(target)), f" ({len(data.groups):,} groups "
+                                f"of {data.n_rows:,} rows); small groups can reveal single "
+                                "units: apply your disclosure rules before sharing it"))
+
+
+@app.command()
 def init(
     data: Annotated[Path, typer.Argument(exists=True, dir_okay=False, readable=True,
                                          show_default=False, metavar="DATA",

@@ -13,7 +13,7 @@ import os
 import secrets
 from pathlib import Path
 
-__all__ = ["temporary_file"]
+__all__ = ["atomic_write_bytes", "temporary_file"]
 
 _PREFIX = ".strativ-"
 _SUFFIX = ".tmp"
@@ -53,3 +53,30 @@ def temporary_file(directory: Path) -> tuple[int, Path]:
         except FileExistsError:
             continue
     raise FileExistsError(errno.EEXIST, "no free temporary file name", str(directory))
+
+
+def atomic_write_bytes(target: Path, payload: bytes) -> None:
+    """Write `payload` to `target` atomically: a temporary file beside it, then a rename.
+
+    Parameters
+    ----------
+    target : Path
+        The final file; its folder must exist.
+    payload : bytes
+        The whole content.
+
+    Raises
+    ------
+    OSError
+        When the folder cannot be written; the temporary file is then removed.
+    """
+    fd, tmp = temporary_file(target.parent)
+    try:
+        with os.fdopen(fd, "wb") as handle:
+            handle.write(payload)
+            handle.flush()
+            os.fsync(handle.fileno())
+        os.replace(tmp, target)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise

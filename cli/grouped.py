@@ -23,6 +23,7 @@ import pandas as pd
 
 from strativ.estimators import OUTCOME_LIMIT, CellTable, cells_from_moments, group_query
 
+from .errors import DataError
 from .loading import (
     STRATUM_JOIN,
     Dataset,
@@ -65,6 +66,8 @@ class GroupedData:
     """For a stratum from several columns: label -> its value in each column."""
     dataset: Dataset | None = None
     """The rows, when they were read row by row (else loaded on demand by `rows`)."""
+    from_moments: bool = False
+    """Whether the data are a moment table (`moment_table.read_moment_table`): no rows."""
 
     @property
     def n_rows(self) -> int:
@@ -77,7 +80,17 @@ class GroupedData:
         return tuple(self.spec.columns.outcome)
 
     def rows(self) -> Dataset:
-        """The rows, read by the row reader (to locate a value the core refused)."""
+        """The rows, read by the row reader (to locate a value the core refused).
+
+        Raises
+        ------
+        DataError
+            When the data are a moment table, which holds no rows to point at.
+        """
+        if self.from_moments:
+            raise DataError(None, None, (), "this check needs the unit rows, and the run reads "
+                            "a moment table", "run the same spec on the row data (data: "
+                            "instead of moments:) to see which rows it concerns")
         return self.dataset if self.dataset is not None else load_data(self.spec)
 
     def _role(self, outcome: str) -> str:
@@ -175,6 +188,10 @@ def group_data(spec: Spec) -> GroupedData:
     DataError
         As `loading.load_data`, with its message, for any data the row reader refuses.
     """
+    if spec.data_kind == "moments":
+        from .moment_table import read_moment_table
+
+        return read_moment_table(spec)
     import duckdb
 
     digests = _distinct_digests(spec)
@@ -222,7 +239,9 @@ def _finish(spec: Spec, roles: Roles, frame: pd.DataFrame,
             return None
         dropped[name] = int(n[miss & ~incomplete].sum())
         incomplete |= miss
-    kept = frame[~incomplete]
+    # groups in key order: the engine returns them in any order, and the cell table adds
+    # them in the order given, so a fixed order gives the same bits on every run
+    kept = frame[~incomplete].sort_values(list(roles.keys), kind="stable")
     if kept.empty:
         return None
     for role in roles.outcomes:
@@ -301,7 +320,8 @@ def from_rows(spec: Spec, dataset: Dataset) -> GroupedData:
         frame = connection.execute(_query(spec, roles)).df()
     finally:
         connection.close()
-    groups = frame.rename(columns={"s0": "stratum"})
+    groups = frame.sort_values(list(roles.keys), kind="stable").reset_index(drop=True)
+    groups = groups.rename(columns={"s0": "stratum"})
     groups["stratum"] = _integer_labels(groups["stratum"].to_numpy(dtype=object).astype(str)) \
         if not dataset.stratum_parts else groups["stratum"].to_numpy(dtype=object)
     return GroupedData(spec=spec, files=dataset.files, groups=groups, roles=roles,

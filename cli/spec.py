@@ -44,6 +44,7 @@ DEFAULT_OUTPUT_DIR = "strativ_out"
 _SECTIONS: dict[str, tuple[str, ...] | None] = {
     "title": None,
     "data": None,
+    "moments": None,
     "columns": ("outcome", "take_up", "offer", "stratum", "cluster", "covariates"),
     "design": ("offer_probability", "assignment", "sampling"),
     "estimators": None,
@@ -140,7 +141,7 @@ class Spec:
     data: tuple[Path, ...]
     """Data files (absolute), in the order given; glob matches sorted by name."""
     data_entries: tuple[str, ...]
-    """The `data` entries as written in the spec."""
+    """The `data` (or `moments`) entries as written in the spec."""
     columns: Columns
     """Column roles."""
     offer_probability: OfferProbability
@@ -161,6 +162,9 @@ class Spec:
     """Result files to write: ``"json"`` (results.json), ``"csv"`` (strata.csv)."""
     drop_incomplete_rows: bool
     """Drop rows missing offer, take-up, stratum (or cluster, probability) instead of failing."""
+    data_kind: str = "rows"
+    """``"rows"`` (`data`: one row per unit) or ``"moments"`` (`moments`: moment tables
+    written by `strativ cells`)."""
     lines: Mapping[KeyPath, int] = field(default_factory=dict, repr=False, compare=False)
     """Spec line of each key path, for messages raised after loading."""
 
@@ -179,6 +183,7 @@ class Spec:
             "path": str(self.path),
             "title": self.title,
             "data": list(self.data_entries),
+            "data_kind": self.data_kind,
             "data_files": [str(p) for p in self.data],
             "columns": {
                 "outcome": list(cols.outcome),
@@ -327,13 +332,18 @@ def load_spec(path: Path | str) -> Spec:
     raw, lines = compose_with_lines(text, path)
     check = _Checker(path, lines)
     top = check.mapping(raw, (), tuple(_SECTIONS))
-    for key in ("data", "columns"):
+    kind = "moments" if "moments" in top else "data"
+    if "moments" in top and "data" in top:
+        raise check.error(("moments",), "the spec has both 'data' and 'moments'",
+                          "name the unit rows under 'data' or a moment table written by "
+                          "'strativ cells' under 'moments', not both")
+    for key in (kind, "columns"):
         if key not in top:
             raise check.error((), f"the spec has no '{key}' key",
                               "a minimal spec needs 'data' and 'columns' "
                               "(outcome, take_up, offer, stratum)")
     title = path.stem if top.get("title") is None else check.name(top["title"], ("title",), "text")
-    data_entries, data = _data_files(check, top["data"], path.parent)
+    data_entries, data = _data_files(check, top[kind], path.parent, kind)
     columns = _columns(check, top["columns"])
     design = check.mapping(top.get("design"), ("design",), _SECTIONS["design"])
     offer_probability = _offer_probability(check, design.get("offer_probability"), columns)
@@ -378,16 +388,17 @@ def load_spec(path: Path | str) -> Spec:
         output_dir=(path.parent / Path(out_dir).expanduser()).resolve(),
         formats=check.choices(output.get("formats"), ("output", "formats"), FORMATS, FORMATS),
         drop_incomplete_rows=drop,
+        data_kind="moments" if kind == "moments" else "rows",
         lines=dict(lines),
     )
 
 
-def _data_files(check: _Checker, value: Any,
-                base: Path) -> tuple[tuple[str, ...], tuple[Path, ...]]:
-    entries = check.names(value, ("data",), "a data file, a list of files or a glob")
+def _data_files(check: _Checker, value: Any, base: Path,
+                key: str = "data") -> tuple[tuple[str, ...], tuple[Path, ...]]:
+    entries = check.names(value, (key,), "a data file, a list of files or a glob")
     found: list[Path] = []
     for i, entry in enumerate(entries):
-        keys = ("data", i) if isinstance(value, list) else ("data",)
+        keys = (key, i) if isinstance(value, list) else (key,)
         target = Path(entry).expanduser()
         target = target if target.is_absolute() else base / target
         pattern = bool(_GLOB_CHARS & set(entry)) and not target.is_file()  # "a[1].csv" is a file
@@ -419,7 +430,7 @@ def _data_files(check: _Checker, value: Any,
                     "strativ reads files ending in .csv, .parquet or .pq"
                 raise check.error(keys, f"'{match.name}' is not a CSV or Parquet file", hint)
             if resolved in found:
-                raise check.error(keys, f"'{match.name}' is named twice in 'data'",
+                raise check.error(keys, f"'{match.name}' is named twice in '{key}'",
                                   "list each file once, or its rows are counted twice")
             found.append(resolved)
     return entries, tuple(found)
