@@ -40,7 +40,11 @@ from .spec import Spec
 from .units_sql import UNITS_VIEW, Roles, UnreadableError, roles_of, units_view
 from .values import parse_label
 
-__all__ = ["GroupedData", "group_data", "from_rows"]
+__all__ = ["CENTRE_ROWS", "GroupedData", "group_data", "from_rows"]
+
+CENTRE_ROWS = 100_000
+"""Rows (the first, in file order) from which each stratum's outcome centre is taken: any
+value near the stratum's outcomes keeps the sums precise, and the files are read once."""
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -167,7 +171,7 @@ def _query(spec: Spec, roles: Roles) -> str:
     ranged = (roles.probability,) if roles.probability else ()
     return group_query(UNITS_VIEW, keys=roles.keys, centre_keys=roles.strata,
                        outcomes=roles.outcomes, counted=roles.flags, ranged=ranged,
-                       total="FSUM")
+                       total="FSUM", centre_rows=CENTRE_ROWS)
 
 
 def group_data(spec: Spec) -> GroupedData:
@@ -197,7 +201,6 @@ def group_data(spec: Spec) -> GroupedData:
     digests = _distinct_digests(spec)
     connection = duckdb.connect()
     try:
-        connection.execute("SET preserve_insertion_order = false")
         try:
             roles = units_view(connection, spec)
             frame = connection.execute(_query(spec, roles)).df()

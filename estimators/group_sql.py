@@ -89,6 +89,7 @@ def group_query(
     counted: Sequence[str] = (),
     ranged: Sequence[str] = (),
     total: str = "SUM",
+    centre_rows: int | None = None,
 ) -> str:
     """The SQL text of the one GROUP BY that summarises a run's rows.
 
@@ -106,6 +107,10 @@ def group_query(
         As in `group_columns`.
     total : str, default="SUM"
         As in `group_columns`.
+    centre_rows : int, optional
+        Take each stratum's centre from the first `centre_rows` rows only (strata absent
+        from them use the smallest value among those rows, or 0), so the source is scanned
+        once instead of twice. None (default): the smallest value of the whole stratum.
 
     Returns
     -------
@@ -130,29 +135,12 @@ def group_query(
         raise InputError("total", f"expected SUM or FSUM, got {total!r}.")
     if not keys or not set(centre_keys) <= set(keys):
         raise InputError("centre_keys", "the centring columns must be group columns.")
+    if centre_rows is not None and (not isinstance(centre_rows, int) or centre_rows < 1):
+        raise InputError("centre_rows", f"expected a positive whole number, got {centre_rows!r}.")
     table = _source_name(source)
-    centres, centred = _quote("strativ_centres"), _quote("strativ_centred")
+    centred = _quote("strativ_centred")
     if outcomes:
-        centre_select = ",\n".join(
-            [f"    {_quote(k)}" for k in centre_keys]
-            + [f"    MIN({_quote(v)}) AS {_quote('centre_' + v)}" for v in outcomes]
-        )
-        join = " AND ".join(
-            f"r.{_quote(k)} IS NOT DISTINCT FROM c.{_quote(k)}" for k in centre_keys
-        )
-        row_lines = ["    r.*"]
-        for v in outcomes:
-            centre = f"c.{_quote('centre_' + v)}"
-            row_lines += [f"    r.{_quote(v)} - {centre} AS {_quote('centred_' + v)}",
-                          f"    {centre} AS {_quote('centre_' + v)}"]
-        rows = ",\n".join(row_lines)
-        by = ", ".join(_quote(k) for k in centre_keys)
-        prefix = (
-            f"WITH {centres} AS (\n  SELECT\n{centre_select}\n  FROM {table}\n"
-            f"  GROUP BY {by}\n),\n"
-            f"{centred} AS (\n  SELECT\n{rows}\n"
-            f"  FROM {table} AS r\n  JOIN {centres} AS c ON {join}\n)\n"
-        )
+        prefix = _centring(table, centre_keys, outcomes, centre_rows)
         body = centred
     else:
         prefix, body = "", table
@@ -162,3 +150,37 @@ def group_query(
         for c in group_columns(outcomes, counted=counted, ranged=ranged, total=total)
     )
     return f"{prefix}SELECT\n    {groups},\n{sums}\nFROM {body}\nGROUP BY {groups}\n"
+
+
+def _centring(table: str, centre_keys: Sequence[str], outcomes: Sequence[str],
+              centre_rows: int | None) -> str:
+    """The common table expressions that centre each outcome within its stratum."""
+    centres, centred = _quote("strativ_centres"), _quote("strativ_centred")
+    by = ", ".join(_quote(k) for k in centre_keys)
+    centre_select = ",\n".join(
+        [f"    {_quote(k)}" for k in centre_keys]
+        + [f"    MIN({_quote(v)}) AS {_quote('centre_' + v)}" for v in outcomes]
+    )
+    join = " AND ".join(f"r.{_quote(k)} IS NOT DISTINCT FROM c.{_quote(k)}" for k in centre_keys)
+    row_lines = ["    r.*"]
+    if centre_rows is None:
+        head = (f"WITH {centres} AS (\n  SELECT\n{centre_select}\n  FROM {table}\n"
+                f"  GROUP BY {by}\n),\n")
+        joins = f"  JOIN {centres} AS c ON {join}\n"
+        centre_of = {v: f"c.{_quote('centre_' + v)}" for v in outcomes}
+    else:
+        sample, overall = _quote("strativ_first_rows"), _quote("strativ_overall")
+        overall_select = ",\n".join(
+            f"    MIN({_quote(v)}) AS {_quote('overall_' + v)}" for v in outcomes)
+        head = (f"WITH {sample} AS (\n  SELECT * FROM {table} LIMIT {centre_rows}\n),\n"
+                f"{centres} AS (\n  SELECT\n{centre_select}\n  FROM {sample}\n"
+                f"  GROUP BY {by}\n),\n"
+                f"{overall} AS (\n  SELECT\n{overall_select}\n  FROM {sample}\n),\n")
+        joins = f"  LEFT JOIN {centres} AS c ON {join}\n  CROSS JOIN {overall} AS o\n"
+        centre_of = {v: f"COALESCE(c.{_quote('centre_' + v)}, o.{_quote('overall_' + v)}, "
+                        "CAST(0 AS DOUBLE))" for v in outcomes}
+    for v in outcomes:
+        row_lines += [f"    r.{_quote(v)} - {centre_of[v]} AS {_quote('centred_' + v)}",
+                      f"    {centre_of[v]} AS {_quote('centre_' + v)}"]
+    rows = ",\n".join(row_lines)
+    return head + f"{centred} AS (\n  SELECT\n{rows}\n  FROM {table} AS r\n{joins})\n"
