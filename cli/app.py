@@ -246,7 +246,7 @@ def cells(
 def init(
     data: Annotated[Path, typer.Argument(exists=True, dir_okay=False, readable=True,
                                          show_default=False, metavar="DATA",
-                                         help="A CSV or Parquet data file to inspect.")],
+                                         help="A data file to inspect.")],
     output: Annotated[Path, typer.Option(
         "--output", "-o", dir_okay=False,
         help="Where to write the starter spec; an existing file is never overwritten.")]
@@ -257,12 +257,12 @@ def init(
     Example:  strativ init demo_data/round_1.csv --output my_study.yaml
     """
     with _boundary() as err:
-        from .spec import DATA_SUFFIXES
         from .starter import starter_spec, write_new_file
+        from .tables import DATA_SUFFIXES, FORMATS_TEXT
 
-        if data.suffix.lower() not in DATA_SUFFIXES:
-            raise UsageError(f"{data.name} is not a CSV or Parquet file",
-                             "strativ reads files ending in .csv, .parquet or .pq")
+        if not data.name.lower().endswith(DATA_SUFFIXES):
+            raise UsageError(f"{data.name} is not a data file strativ reads",
+                             f"strativ reads files ending in {FORMATS_TEXT}")
         target = output.expanduser()
         write_new_file(target, starter_spec(data, target))
         err.print(Text.assemble("wrote ", Text(str(target)), "; fill in the commented roles, "

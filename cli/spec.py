@@ -24,6 +24,7 @@ from strativ.estimators.options import (
 )
 
 from .errors import SpecError
+from .tables import DATA_SUFFIXES, FORMATS_TEXT
 from .yamlmarks import KeyPath, compose_with_lines, dotted, line_of
 
 __all__ = [
@@ -38,7 +39,6 @@ __all__ = [
 ]
 
 FORMATS = ("json", "csv")
-DATA_SUFFIXES = (".csv", ".parquet", ".pq")
 DEFAULT_OUTPUT_DIR = "strativ_out"
 
 _SECTIONS: dict[str, tuple[str, ...] | None] = {
@@ -424,11 +424,11 @@ def _data_files(check: _Checker, value: Any, base: Path,
             matches = [target]
         for match in matches:
             resolved = match.resolve()
-            if resolved.suffix.lower() not in DATA_SUFFIXES:
+            if not resolved.name.lower().endswith(DATA_SUFFIXES):
                 hint = f"the pattern '{entry}' matched it; narrow the pattern, for example " \
                     "to end in .csv" if pattern else \
-                    "strativ reads files ending in .csv, .parquet or .pq"
-                raise check.error(keys, f"'{match.name}' is not a CSV or Parquet file", hint)
+                    f"strativ reads files ending in {FORMATS_TEXT}"
+                raise check.error(keys, f"'{match.name}' is not a data file strativ reads", hint)
             if resolved in found:
                 raise check.error(keys, f"'{match.name}' is named twice in '{key}'",
                                   "list each file once, or its rows are counted twice")

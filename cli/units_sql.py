@@ -182,8 +182,8 @@ spellings of a missing token (mixed case, spaces) leave the column as text, wher
 `_text_missing` finds them."""
 
 
-def _relation(connection: Any, path: Path, index: int,
-              labels: list[str]) -> tuple[str, list[str]]:
+def _relation(connection: Any, path: Path, index: int, labels: list[str],
+              wanted: list[str]) -> tuple[str, list[str]]:
     """Register file `index` as a view; return its name and header. Label columns of a CSV
     file are read as text, exactly as written; DuckDB's sniffer types the others."""
     name = f"strativ_file_{index}"
@@ -194,12 +194,12 @@ def _relation(connection: Any, path: Path, index: int,
     elif lower.endswith(_FOREIGN):
         from .foreign import read_foreign
 
-        table = read_foreign(path)
+        table = read_foreign(path, wanted)
         connection.register(name + "_arrow", table)
         relation = connection.table(name + "_arrow")
         header = list(table.column_names)
     else:
-        tabs = lower.endswith((".tsv", ".tsv.gz", ".tab"))
+        tabs = lower.endswith((".tsv", ".tsv.gz"))
         delimiter = "\t" if tabs else ","
         header = _csv_header(path, delimiter)
         relation = connection.read_csv(
@@ -240,11 +240,11 @@ def units_view(connection: Any, spec: Spec) -> Roles:
     try:
         for index, path in enumerate(spec.data):
             labels = [*cols.stratum, *([cols.cluster] if cols.cluster else [])]
-            name, header = _relation(connection, path, index, labels)
-            kinds = dict(connection.execute(
-                f"SELECT column_name, column_type FROM (DESCRIBE {_q(name)})").fetchall())
             wanted = [*cols.stratum, cols.offer, cols.take_up, *cols.outcome, *cols.covariates]
             wanted += [c for c in (cols.cluster, spec.offer_probability.column) if c]
+            name, header = _relation(connection, path, index, labels, wanted)
+            kinds = dict(connection.execute(
+                f"SELECT column_name, column_type FROM (DESCRIBE {_q(name)})").fetchall())
             if any(header.count(w) != 1 for w in wanted):
                 raise UnreadableError(f"{path.name}: a column is missing or repeated")
             parts = [f"{index} AS file"]

@@ -116,10 +116,10 @@ def test_init_never_overwrites(study: Study, invoke) -> None:
 
 
 def test_init_refuses_other_file_types(tmp_path: Path, invoke) -> None:
-    data = tmp_path / "data.xlsx"
+    data = tmp_path / "data.txt"
     data.write_bytes(b"PK")
     result = invoke("init", data, "-o", tmp_path / "s.yaml")
-    assert_clean_failure(result, 2, "data.xlsx is not a CSV or Parquet file")
+    assert_clean_failure(result, 2, "data.txt is not a data file strativ reads")
     assert not (tmp_path / "s.yaml").exists()
 
 

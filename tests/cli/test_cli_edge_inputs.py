@@ -143,7 +143,7 @@ def test_a_glob_matching_a_non_data_file_says_the_pattern_matched_it(study: Stud
                                                                      invoke) -> None:
     (study.root / "data.txt").write_text("notes\n")
     study.write_spec(MINIMAL_SPEC.replace("data: data.csv", "data: 'data.*'"))
-    _fails(study, invoke, SPEC_ERROR, "'data.txt' is not a CSV or Parquet file",
+    _fails(study, invoke, SPEC_ERROR, "'data.txt' is not a data file strativ reads",
            "the pattern 'data.*' matched it")
 
 

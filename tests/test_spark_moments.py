@@ -1,0 +1,225 @@
+"""The Spark engine runs the same moment query as DuckDB: the moment tables of numpy
+(`build_cells`), DuckDB and Spark agree.
+
+Data: the committed demo (demo_data/round_*.csv with specs/demo.yaml's roles: outcome
+``gas_therms``, which has no missing values, take-up ``retrofitted``, offer ``won_lottery``,
+stratum ``district``, covariates ``baseline_therms`` and ``home_age_years``) and one seeded draw
+of 1,000,000 invented units (text strata, households as clusters, two covariates) written to
+Parquet in a temporary folder. Only agreement between engines is checked, not any statistic's
+value. One local Spark session (two cores) serves the whole module.
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from strativ.cli import duckdb_engine, spark_engine
+from strativ.cli.errors import DataError, UsageError
+from strativ.estimators import CellTable, build_cells, cells_from_moments
+
+SEED = 20261203
+RTOL = 1e-12
+DEMO_DIR = Path(__file__).resolve().parents[1] / "demo_data"
+DEMO_ROLES = {
+    "outcome": "gas_therms",
+    "take_up": "retrofitted",
+    "offer": "won_lottery",
+    "stratum": "district",
+}
+DEMO_COVARIATES = ("baseline_therms", "home_age_years")
+UNIT_ROLES = {"outcome": "use", "take_up": "insulated", "offer": "offered", "stratum": "district"}
+UNIT_COVARIATES = ("baseline_use", "floor_area")
+CELL_FIELDS = ("mean_outcome", "mean_take_up", "ss_outcome", "ss_cross", "ss_take_up")
+
+
+@pytest.fixture(scope="module")
+def spark():
+    session = spark_engine.spark_session("local[2]")
+    yield session
+    session.stop()
+
+
+@pytest.fixture(scope="module")
+def units(tmp_path_factory: pytest.TempPathFactory) -> tuple[pd.DataFrame, Path]:
+    """1,000,000 invented units in 300 text strata of 1,000 households; offers by household,
+    take-up by unit; an outcome that moves with both covariates."""
+    rng = np.random.default_rng(SEED)
+    n_units, n_strata, per_stratum = 1_000_000, 300, 1_000
+    household = rng.integers(0, n_strata * per_stratum, n_units)
+    stratum = household // per_stratum
+    share = (0.2 + 0.6 * rng.random(n_strata)).repeat(per_stratum)  # offer share by household
+    offered = (rng.random(n_strata * per_stratum) < share).astype(np.int8)[household]
+    insulated = (rng.random(n_units) < 0.05 + 0.7 * offered).astype(np.int8)
+    baseline = 600.0 + 40.0 * rng.normal(size=n_strata)[stratum] + 25.0 * rng.normal(size=n_units)
+    area = np.round(rng.gamma(9.0, 12.0, n_units), 1)
+    use = (
+        0.9 * baseline
+        + 0.3 * area
+        - (20.0 + 5.0 * rng.normal(size=n_strata))[stratum] * insulated
+        + 8.0 * rng.normal(size=n_strata * per_stratum)[household]
+        + 15.0 * rng.normal(size=n_units)
+    )
+    labels = np.array([f"utility district {k:03d}" for k in range(n_strata)], dtype=object)
+    frame = pd.DataFrame(
+        {
+            "district": labels[stratum],
+            "household": household,
+            "offered": offered,
+            "insulated": insulated,
+            "use": use,
+            "baseline_use": baseline,
+            "floor_area": area,
+        }
+    )
+    path = tmp_path_factory.mktemp("spark_moments") / "units.parquet"
+    frame.to_parquet(path, index=False, row_group_size=125_000)  # read in parallel
+    return frame, path
+
+
+def demo_rows() -> pd.DataFrame:
+    return pd.concat(
+        [pd.read_csv(path) for path in sorted(DEMO_DIR.glob("round_*.csv"))], ignore_index=True
+    )
+
+
+def numpy_cells(frame: pd.DataFrame, roles: dict[str, str], cluster: str | None) -> CellTable:
+    return build_cells(
+        frame[roles["outcome"]].to_numpy(),
+        frame[roles["take_up"]].to_numpy(),
+        frame[roles["offer"]].to_numpy(),
+        frame[roles["stratum"]].to_numpy(),
+        cluster=None if cluster is None else frame[cluster].to_numpy(),
+    )
+
+
+def by_keys(moments: pd.DataFrame) -> pd.DataFrame:
+    keys = [k for k in ("stratum", "offer", "take_up", "cluster") if k in moments.columns]
+    return moments.sort_values(keys, kind="stable").reset_index(drop=True)
+
+
+def assert_same_moments(spark: pd.DataFrame, duck: pd.DataFrame) -> None:
+    """Same groups and counts; every sum to RTOL of DuckDB's (each sums products of values at
+    or above their stratum's minimum, so no sum cancels); the same centres."""
+    assert list(spark.columns) == list(duck.columns)
+    assert len(spark) == len(duck)
+    got, ref = by_keys(spark), by_keys(duck)
+    for column in ref.columns:
+        actual, expected = got[column].to_numpy(), ref[column].to_numpy()
+        if column == "stratum":
+            assert actual.tolist() == expected.tolist()
+        elif column.startswith("sum_"):
+            np.testing.assert_allclose(actual, expected, rtol=RTOL, atol=0, err_msg=column)
+        else:  # keys, counts, missing counts, centres (minima): exact
+            np.testing.assert_array_equal(actual, expected, err_msg=column)
+
+
+def assert_field(actual: np.ndarray, expected: np.ndarray, floor: np.ndarray, name: str) -> None:
+    """|actual - expected| <= RTOL * max(|expected|, floor), element by element."""
+    scale = np.maximum(np.abs(expected), floor)
+    scale = np.where(scale > 0, scale, 1.0)
+    np.testing.assert_allclose(actual / scale, expected / scale, rtol=0, atol=RTOL, err_msg=name)
+
+
+def assert_same_cells(actual: CellTable, expected: CellTable) -> None:
+    """Counts identical; the other arrays to RTOL; a sum that nearly cancels to RTOL of its
+    Cauchy-Schwarz bound."""
+    assert actual.labels == expected.labels
+    np.testing.assert_array_equal(actual.n, expected.n)
+    floors = {"ss_cross": np.sqrt(expected.ss_outcome * expected.ss_take_up)}
+    for name in CELL_FIELDS:
+        want = getattr(expected, name)
+        assert_field(getattr(actual, name), want, floors.get(name, 0.0), name)
+    if expected.clusters is None:
+        assert actual.clusters is None
+        return
+    got, ref = actual.clusters, expected.clusters
+    np.testing.assert_array_equal(got.count, ref.count)
+    floors = {
+        "q_cross": np.sqrt(ref.q_outcome * ref.q_take_up),
+        # sizes times deviations that sum to zero per cell: bounded by sqrt(size_sq * q)
+        "size_dev_outcome": np.sqrt(ref.size_sq * ref.q_outcome),
+        "size_dev_take_up": np.sqrt(ref.size_sq * ref.q_take_up),
+    }
+    for name in ("q_outcome", "q_cross", "q_take_up", "size_sq", *floors):
+        want = getattr(ref, name)
+        assert_field(getattr(got, name), want, floors.get(name, 0.0), f"clusters.{name}")
+
+
+# ---------------------------------------------------------------- the demo
+
+
+def test_demo_moments_agree_across_numpy_duckdb_and_spark(spark):
+    rows = demo_rows()
+    pattern = str(DEMO_DIR / "round_*.csv")
+    on_spark = spark_engine.moment_frame(pattern, covariates=DEMO_COVARIATES, **DEMO_ROLES)
+    on_duck = duckdb_engine.moment_frame(rows, covariates=DEMO_COVARIATES, **DEMO_ROLES)
+    # reference: DuckDB, the same query over the same rows
+    assert_same_moments(on_spark, on_duck)
+    expected = numpy_cells(rows, DEMO_ROLES, cluster=None)
+    # reference: build_cells (in-memory route), for each engine's table
+    assert_same_cells(cells_from_moments(on_spark), expected)
+    assert_same_cells(cells_from_moments(on_duck), expected)
+
+
+# ---------------------------------------------------------------- one million units
+
+
+def test_million_parquet_units_agree_across_numpy_duckdb_and_spark(spark, units):
+    frame, path = units
+    kwargs = {**UNIT_ROLES, "cluster": "household", "covariates": UNIT_COVARIATES}
+    on_spark = spark_engine.moment_frame(path, **kwargs)
+    on_duck = duckdb_engine.moment_frame(path, **kwargs)
+    # by construction: 1,000,000 units over 300,000 households (about 290,000 of them drawn)
+    # that never span strata, so the groups are (stratum, offer, take-up, household)
+    assert len(on_duck) > 250_000
+    # reference: DuckDB, the same query over the same file
+    assert_same_moments(on_spark, on_duck)
+    expected = numpy_cells(frame, UNIT_ROLES, cluster="household")
+    # reference: build_cells (in-memory route) with clusters, for each engine's table
+    assert_same_cells(cells_from_moments(on_spark), expected)
+    assert_same_cells(cells_from_moments(on_duck), expected)
+
+
+def test_million_parquet_units_without_clusters_agree(spark, units):
+    frame, path = units
+    on_spark = spark_engine.moment_frame(str(path), **UNIT_ROLES)
+    on_duck = duckdb_engine.moment_frame(path, **UNIT_ROLES)
+    # by construction: 300 strata x 2 offers x 2 take-up values; the smallest cell (5 % take-up
+    # without an offer, in a stratum offered to 80 %) still expects about 30 units
+    assert len(on_duck) == 1_200
+    # reference: DuckDB, the same query over the same file
+    assert_same_moments(on_spark, on_duck)
+    # reference: build_cells (in-memory route)
+    assert_same_cells(cells_from_moments(on_spark), numpy_cells(frame, UNIT_ROLES, None))
+
+
+# ---------------------------------------------------------------- errors and loading
+
+
+def test_a_missing_column_is_named_in_the_error(spark, units):
+    _, path = units
+    with pytest.raises(DataError, match="the moment query failed: .*`monthly_use`") as caught:
+        spark_engine.moment_frame(path, **{**UNIT_ROLES, "outcome": "monthly_use"})
+    assert caught.value.file == path
+    assert "Traceback" not in caught.value.render()
+
+
+def test_without_pyspark_the_error_names_the_extra(monkeypatch):
+    monkeypatch.setitem(sys.modules, "pyspark.sql", None)  # as if pyspark were not installed
+    with pytest.raises(UsageError, match=r"pip install 'strativ\[spark\]'"):
+        spark_engine.spark_session()
+
+
+def test_importing_the_engine_loads_neither_pyspark_nor_pandas():
+    code = (
+        "import sys, strativ.cli.spark_engine\n"
+        "print(sorted({'pyspark', 'py4j', 'pandas', 'numpy', 'duckdb'} & set(sys.modules)))\n"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert done.stdout.strip() == "[]"
