@@ -192,6 +192,11 @@ def fit_warnings(outcomes: Sequence[OutcomeResult]) -> list[str]:
                        "only the weak-IV robust confidence set is reported")
         for reason, names in no_error.items():
             out.append(f"'{name}': no standard error for {', '.join(names)}: {reason}")
+        for est in estimates:
+            if est.estimate is not None and est.first_stage_f is None and \
+                    est.first_stage_f_reason:
+                out.append(f"'{name}': no first-stage F in this flavour for {est.estimator}: "
+                           f"{est.first_stage_f_reason}")
         weak = _weak(estimates)
         if weak:
             out.append(f"'{name}': the first stage is weak ({', '.join(weak)}; below "

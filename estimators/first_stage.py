@@ -30,6 +30,8 @@ class FirstStageStatistics:
     """Homoskedastic F with residual variance ``RSS / (n - k)``."""
     instruments: int
     """Number of excluded instruments q."""
+    f_reason: str | None = None
+    """Why `f` is None, in words; None when `f` is a number."""
 
 
 def _ratio(numerator: float, variance: float) -> float | None:
@@ -113,15 +115,26 @@ def first_stage_statistics(
     if estimator == "interacted":
         var = stratum_quadratic(design, np.tile([0.0, 1.0], (len(design.labels), 1)),
                                 variance=variance)
-        f = None
+        f, reason = None, None
         if np.isfinite(var).all() and (var > 0).all():
             f = float((design.first_stage**2 / var).sum() / len(design.labels))
-        return FirstStageStatistics(f, _unadjusted_interacted(design), len(design.labels))
+        else:
+            flat = [str(label) for label, v in zip(design.labels, var.tolist(), strict=True)
+                    if not (np.isfinite(v) and v > 0)]
+            shown = ", ".join(flat[:5]) + (f" and {len(flat) - 5} more" if len(flat) > 5 else "")
+            which = f"stratum {shown} has" if len(flat) == 1 else f"strata {shown} have"
+            reason = (f"the first stage of {which} no estimated variance in this "
+                      "flavour (take-up constant within each offer arm), so the joint F over "
+                      "strata is undefined; the unadjusted F pools the variance")
+        return FirstStageStatistics(f, _unadjusted_interacted(design), len(design.labels),
+                                    reason)
     spread = covariance(design, [form], variance=variance, assignment=assignment,
                         sampling=sampling, centred=True)
     f = _ratio(form.denominator**2, float(spread[1, 1]))
+    reason = None if f is not None else \
+        "the first stage has no estimated variance in this flavour"
     if estimator == "fixed_effects":
         unadjusted = _unadjusted_fixed_effects(design, form)
     else:
         unadjusted = _unadjusted_weighted(design, form)
-    return FirstStageStatistics(f, unadjusted, 1)
+    return FirstStageStatistics(f, unadjusted, 1, reason)

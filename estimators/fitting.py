@@ -212,6 +212,7 @@ def _estimate(
         first_stage_f_unadjusted=strength.f_unadjusted,
         first_stage_f_null=f_null,
         first_stage_instruments=strength.instruments,
+        first_stage_f_reason=strength.f_reason,
         weak_first_stage=weak,
         itt=n,
         itt_std_error=_root(spread[0, 0]),

@@ -104,6 +104,9 @@ class Estimate:
     the set is bounded exactly when it exceeds the squared critical value."""
     first_stage_instruments: int
     """Excluded instruments of the first stage: 1, or the number of strata (interacted)."""
+    first_stage_f_reason: str | None
+    """Why `first_stage_f` is None, in words (for example strata whose take-up is constant
+    within each offer arm); None when it is a number."""
     weak_first_stage: bool
     """First-stage F below 10 (or undefined): read the confidence set, not the interval."""
     itt: float

@@ -134,3 +134,19 @@ def test_design_probabilities_equal_to_realized_shares_reproduce_the_estimate():
     robust_design = fit(cells, estimator="weighted", offer_probability=shares, variance="robust")
     robust_plain = fit(cells, estimator="weighted", variance="robust")
     assert robust_design.std_error == pytest.approx(robust_plain.std_error, rel=1e-12)
+
+
+def test_an_undefined_joint_first_stage_f_says_which_strata_and_why():
+    # by construction: one-sided non-compliance, and in stratum "c" everyone offered takes
+    # it up, so that stratum's first stage (1 - 0) has no estimated variance
+    rng = np.random.default_rng(5)
+    s = np.repeat(np.array(["a", "b", "c"]), 60)
+    z = np.tile(np.repeat([0, 1], 30), 3)
+    d = np.where(z == 1, (rng.random(180) < 0.7) | (s == "c"), 0).astype(int)
+    y = 1.0 + 2.0 * d + rng.normal(0.0, 1.0, 180)
+    comparison = fit_all(build_cells(y, d, z, s))
+    interacted = comparison.get("interacted")
+    assert interacted.first_stage_f is None
+    assert "stratum c" in interacted.first_stage_f_reason
+    assert interacted.first_stage_f_unadjusted is not None
+    assert comparison.get("fixed_effects").first_stage_f_reason is None
