@@ -85,7 +85,10 @@ def data_warnings(spec: Spec, dataset: GroupedData) -> list[str]:
     """
     out = []
     cols = spec.columns
-    if cols.covariates:
+    if cols.covariates and spec.data_kind == "moments":
+        out.append("covariates " + ", ".join(cols.covariates) + " are not in a moment table "
+                   "and were not used: every estimate is unadjusted")
+    elif cols.covariates:
         out.append("covariates " + ", ".join(cols.covariates) + " were checked and recorded "
                    "but not used: the estimators do not adjust for covariates yet, so every "
                    "estimate is unadjusted")
