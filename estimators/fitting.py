@@ -426,7 +426,7 @@ def fit_all(
     pooled = late.numerator / late.denominator if late.denominator != 0 else None
     return Comparison(
         estimates=estimates,
-        strata=stratum_table(design, fe, late, variance=variance),
+        strata=stratum_table(design, fe, reference, variance=variance),
         gap=contrast(design, fe, reference, complier_name, level=level, **options),
         size_weighted=size_weighted(design, variance=variance, sampling=sampling),
         notes=tuple(notes),

@@ -29,11 +29,28 @@ def stratum_effects(design: Design) -> np.ndarray:
         return np.where(fs == 0, np.nan, design.itt / np.where(fs == 0, 1.0, fs))
 
 
+def _shares(form: LinearForm, design: Design) -> np.ndarray:
+    """Each stratum's share of the form's (N, D), (K, 2), summing to (N, D).
+
+    For a form that weights strata (``b_s`` on both arms) this is ``b_s (ITT_s, FS_s)``.
+    With design probabilities the arms carry different weights ``b_s1 != b_s0``, and a
+    stratum's share ``b_s1 m_s1 - b_s0 m_s0`` would move with the outcome's level; measuring
+    each cell mean from the pooled mean (``sum_s (b_s1 - b_s0) = 0``, so the total is kept)
+    makes the shares follow the outcome's units only.
+    """
+    net = (form.kappa * design.n).sum(axis=1)  # b_s1 - b_s0; zero when a form weights strata
+    n = design.n
+    pooled = np.array([(n * design.mean_outcome).sum(), (n * design.mean_take_up).sum()])
+    return form.stratum_contribution - net[:, None] * (pooled / n.sum())[None, :]
+
+
 def _implied(form: LinearForm, design: Design) -> np.ndarray:
-    """Implied weight on each stratum effect: ``a_s FS_s / sum_t a_t FS_t``."""
+    """Each stratum's share of the form's first stage, ``c_D,s / D``: the implied weight
+    ``a_s FS_s / sum_t a_t FS_t`` on its effect when the form weights strata (with design
+    probabilities, its share of the complier count; see `_shares`)."""
     if form.denominator == 0:
         return np.full(len(design.labels), np.nan)
-    return form.stratum_weight * design.first_stage / form.denominator
+    return _shares(form, design)[:, 1] / form.denominator
 
 
 def _float(value: float) -> float | None:
@@ -50,7 +67,9 @@ def stratum_table(
     design : Design
         The analysis sample.
     fe, late : LinearForm
-        Fixed-effects and complier-weighted forms.
+        The fixed-effects form and the complier-weighted form the gap reports (weighted
+        with design probabilities when given, else interacted), so that the contributions
+        add up to the reported gap.
     variance : str
         Flavour for the stratum effects' standard errors.
 
@@ -58,15 +77,17 @@ def stratum_table(
     -------
     StratumTable
         Rows in label order; ``gap_contribution`` sums to fixed effects minus
-        complier-weighted: ``(w_s^FE - w_s^LATE) beta_s = ITT_s (b_s^FE / D^FE - b_s / D)``.
+        complier-weighted: each stratum's share of each numerator over its denominator,
+        ``c_N,s^FE / D^FE - c_N,s / D``, which is ``(w_s^FE - w_s^LATE) beta_s =
+        ITT_s (b_s^FE / D^FE - b_s / D)`` for forms that weight strata.
     """
     effect = stratum_effects(design)
     eff_var = stratum_effect_variance(design, np.nan_to_num(effect), variance=variance)
     no_spread = rule(design, variance) == "pairs"
     w_fe, w_late = _implied(fe, design), _implied(late, design)
     with np.errstate(divide="ignore", invalid="ignore"):
-        gap = design.itt * (fe.stratum_weight / fe.denominator
-                            - late.stratum_weight / late.denominator)
+        gap = (_shares(fe, design)[:, 0] / fe.denominator
+               - _shares(late, design)[:, 0] / late.denominator)
     n, share = design.n.tolist(), design.offer_share.tolist()
     mean_y, mean_d = design.mean_outcome.tolist(), design.mean_take_up.tolist()
     itt, fs = design.itt.tolist(), design.first_stage.tolist()

@@ -150,3 +150,19 @@ def test_an_undefined_joint_first_stage_f_says_which_strata_and_why():
     assert "stratum c" in interacted.first_stage_f_reason
     assert interacted.first_stage_f_unadjusted is not None
     assert comparison.get("fixed_effects").first_stage_f_reason is None
+
+
+def test_with_design_probabilities_the_contributions_add_up_to_the_reported_gap():
+    # source: METHODS.md §3 (the gap compares fixed effects with the reported complier
+    # estimator: weighted with design probabilities); by construction, each stratum's share
+    # of each numerator over its denominator sums to the difference of the two estimates
+    y, d, z, s = _design()
+    cells = build_cells(y, d, z, s)
+    design = {label: 0.3 + 0.05 * k for k, label in enumerate(cells.labels)}
+    comparison = fit_all(cells, offer_probability=design)
+    rows = comparison.strata.rows
+    gap = comparison.get("fixed_effects").estimate - comparison.get("weighted").estimate
+    assert comparison.gap.complier_estimator == "weighted"
+    assert comparison.gap.estimate == pytest.approx(gap, rel=1e-12)
+    assert sum(r.gap_contribution for r in rows) == pytest.approx(gap, rel=1e-10)
+    assert sum(r.weight_complier for r in rows) == pytest.approx(1.0, rel=1e-12)
