@@ -42,9 +42,13 @@ duckdb.sql(f'''SELECT district, offered, took_up, COUNT(*), SUM(use), SUM(use * 
 """
 
 
-def generate(folder: Path, rows: int) -> tuple[Path, Path]:
-    """Write the Parquet (text strata) and CSV (integer strata) files with DuckDB."""
-    parquet, csv = folder / "units.parquet", folder / "units.csv"
+TEXT_DISTRICT = "'district ' || lpad(CAST(k AS VARCHAR), 4, '0')"
+"""SQL of a text stratum label ("district 0042") from the stratum number k."""
+
+
+def units_query(rows: int, district: str = TEXT_DISTRICT) -> str:
+    """The SELECT that draws `rows` invented units in 1,000 strata (DuckDB's hash, no seed
+    needed): offer shares 0.15-0.85 by stratum, two-sided non-compliance, two outcomes."""
     draw = f"""
         SELECT i % 1000 AS k,
                (hash(i, 1) % 1000) / 1000.0 AS u1,
@@ -54,16 +58,20 @@ def generate(folder: Path, rows: int) -> tuple[Path, Path]:
     units = f"""
         SELECT k, CAST(u1 < 0.15 + 0.7 * (k % 97) / 97.0 AS INTEGER) AS offered, u2, u3
         FROM ({draw})"""
-    body = f"""
-        SELECT {{district}} AS district, offered,
+    return f"""
+        SELECT {district} AS district, offered,
                CASE WHEN u2 < 0.1 THEN 1 WHEN u2 < 0.3 THEN 0 ELSE offered END AS took_up,
                100 + 10 * u3 - 5 * offered AS use,
                CASE WHEN u3 < 0.02 THEN NULL ELSE CAST(u3 < 0.3 AS INTEGER) END AS arrears
         FROM ({units})"""
+
+
+def generate(folder: Path, rows: int) -> tuple[Path, Path]:
+    """Write the Parquet (text strata) and CSV (integer strata) files with DuckDB."""
+    parquet, csv = folder / "units.parquet", folder / "units.csv"
     con = duckdb.connect()
-    text = body.format(district="'district ' || lpad(CAST(k AS VARCHAR), 4, '0')")
-    con.execute(f"COPY ({text}) TO '{parquet}' (FORMAT parquet)")
-    con.execute(f"COPY ({body.format(district='k')}) TO '{csv}' (HEADER, DELIMITER ',')")
+    con.execute(f"COPY ({units_query(rows)}) TO '{parquet}' (FORMAT parquet)")
+    con.execute(f"COPY ({units_query(rows, 'k')}) TO '{csv}' (HEADER, DELIMITER ',')")
     con.close()
     return parquet, csv
 

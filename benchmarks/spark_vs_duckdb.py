@@ -30,6 +30,7 @@ import time
 from pathlib import Path
 
 import duckdb
+from data_path import units_query  # the same invented units in both benchmarks
 
 ROLES = {"outcome": "use", "take_up": "took_up", "offer": "offered", "stratum": "district"}
 
@@ -75,23 +76,10 @@ print(json.dumps(marks))
 
 
 def generate(path: Path, rows: int) -> None:
-    """Write ``rows`` units in 1,000 text strata to ``path`` with DuckDB."""
-    draw = f"""
-        SELECT i % 1000 AS k,
-               (hash(i, 1) % 1000) / 1000.0 AS u1,
-               (hash(i, 2) % 1000) / 1000.0 AS u2,
-               (hash(i, 3) % 1000) / 1000.0 AS u3
-        FROM range({rows}) t(i)"""
-    units = f"""
-        SELECT k, CAST(u1 < 0.15 + 0.7 * (k % 97) / 97.0 AS INTEGER) AS offered, u2, u3
-        FROM ({draw})"""
-    body = f"""
-        SELECT 'district ' || lpad(CAST(k AS VARCHAR), 4, '0') AS district, offered,
-               CASE WHEN u2 < 0.1 THEN 1 WHEN u2 < 0.3 THEN 0 ELSE offered END AS took_up,
-               100 + 10 * u3 - 5 * offered AS use
-        FROM ({units})"""
+    """Write ``rows`` units in 1,000 text strata to ``path`` with DuckDB (the units of
+    `data_path.py`)."""
     con = duckdb.connect()
-    con.execute(f"COPY ({body}) TO '{path}' (FORMAT parquet)")
+    con.execute(f"COPY ({units_query(rows)}) TO '{path}' (FORMAT parquet)")
     con.close()
 
 
