@@ -196,19 +196,31 @@ def group_data(spec: Spec) -> GroupedData:
         from .moment_table import read_moment_table
 
         return read_moment_table(spec)
+    digests = _distinct_digests(spec)
+    try:
+        if spec.reading.engine == "spark":
+            from .spark_units import spark_group_frame
+
+            roles, frame = spark_group_frame(spec, CENTRE_ROWS)
+        else:
+            roles, frame = _duckdb_frame(spec)
+    except UnreadableError:
+        return from_rows(spec, load_data(spec))
+    return _finish(spec, roles, frame, digests) or from_rows(spec, load_data(spec))
+
+
+def _duckdb_frame(spec: Spec) -> tuple[Roles, pd.DataFrame]:
+    """The grouped table of `spec`'s files, by DuckDB in this process."""
     import duckdb
 
-    digests = _distinct_digests(spec)
     connection = duckdb.connect()
     try:
-        try:
-            roles = units_view(connection, spec)
-            frame = connection.execute(_query(spec, roles)).df()
-        except (UnreadableError, duckdb.Error):
-            return from_rows(spec, load_data(spec))
+        roles = units_view(connection, spec)
+        return roles, connection.execute(_query(spec, roles)).df()
+    except duckdb.Error as exc:
+        raise UnreadableError(str(exc)) from None
     finally:
         connection.close()
-    return _finish(spec, roles, frame, digests) or from_rows(spec, load_data(spec))
 
 
 def _null(frame: pd.DataFrame, column: str) -> np.ndarray:

@@ -24,7 +24,15 @@ from strativ.estimators import OUTCOME_LIMIT
 from .errors import DataError
 from .spec import Spec, suggest
 from .tables import OTHER_DELIMITERS, Table, read_table
-from .values import Parsed, parse_binary, parse_label, parse_number
+from .values import (
+    Parsed,
+    decimal_label,
+    decimal_point,
+    parse_binary,
+    parse_label,
+    parse_number,
+    recode,
+)
 
 __all__ = ["InputFile", "Dataset", "load_data", "file_digest", "file_fingerprint"]
 
@@ -210,11 +218,13 @@ def _check_columns(path: Path, table: Table, spec: Spec,
             continue
         at = f" (named as {role} in {spec.path.name}, line {line})" if line else ""
         for delim, plural in OTHER_DELIMITERS.items():
-            if delim in table.header_line and name in [
+            if delim != spec.reading.delimiter and delim in table.header_line and name in [
                     f.strip() for f in table.header_line.split(delim)]:
+                shown_delim = "tab" if delim == "\t" else delim
                 raise DataError(path, None, (), f"the fields seem to be separated by {plural}, "
-                                f"not commas: no column '{name}'{at}",
-                                "save the file as comma-separated CSV")
+                                f"not as the spec reads them: no column '{name}'{at}",
+                                "save the file as comma-separated CSV, or add  reading: "
+                                f"{{delimiter: '{shown_delim}'}}  to the spec")
         # a misspelt keyword reads as a column name; suggest the keyword too
         near = suggest(name, present + (["estimated"] if role == "design.offer_probability"
                                         else []))
@@ -236,27 +246,37 @@ def _bad_values(path: Path, column: str, table: Table, parsed: Parsed, cells: li
 def _parse_file(path: Path, table: Table, spec: Spec) -> dict[str, Parsed]:
     cols = spec.columns
     out: dict[str, Parsed] = {}
-    for name in (cols.offer, cols.take_up):
-        parsed = parse_binary(table.columns[name])
+    for role, name in (("offer", cols.offer), ("take_up", cols.take_up)):
+        codes = spec.reading.codes_of(role)
+        cells = table.columns[name] if codes is None else recode(table.columns[name], codes)
+        parsed = parse_binary(cells)
         if parsed.invalid.size:
-            raise _bad_values(path, name, table, parsed, table.columns[name],
-                              "values must be 0/1 or true/false",
-                              "recode the column to 0 and 1 (1 = offered / took it up)")
+            what, hint = ("values must be 0/1 or true/false",
+                          "recode the column to 0 and 1 (1 = offered / took it up), or list "
+                          f"its codes under 'reading: codes: {role}:' in the spec") \
+                if codes is None else \
+                ("values must be one of the codes " + ", ".join(map(repr, codes)) +
+                 f" listed under reading.codes.{role}", "add the code to the spec, or fix "
+                 "the values")
+            raise _bad_values(path, name, table, parsed, table.columns[name], what, hint)
         out[name] = parsed
     numeric = list(cols.outcome) + list(cols.covariates)
     if spec.offer_probability.column is not None:
         numeric.append(spec.offer_probability.column)
     for name in numeric:
-        parsed = parse_number(table.columns[name])
+        parsed = parse_number(decimal_point(table.columns[name], spec.reading.decimal))
         if parsed.invalid.size:
             role = "outcome" if name in cols.outcome else \
                 "covariate" if name in cols.covariates else "offer probability"
             first = table.columns[name][int(parsed.invalid[0])]
-            comma = isinstance(first, str) and _DECIMAL_COMMA.fullmatch(first.strip())
+            comma = isinstance(first, str) and _DECIMAL_COMMA.fullmatch(first.strip()) \
+                and spec.reading.decimal == "."
             raise _bad_values(path, name, table, parsed, table.columns[name],
                               f"the {role} column must be numeric",
                               "write numbers with a decimal point and no separators "
-                              "(12.5 and 1000, not 12,5 or 1,000)" if comma
+                              "(12.5 and 1000, not 12,5 or 1,000), or for a file written "
+                              "with decimal commas add  reading: {delimiter: ';', decimal: ','}"
+                              "  to the spec" if comma
                               else "fix or blank out these values (blank = missing)")
         out[name] = parsed
     for name in cols.outcome:
@@ -268,7 +288,7 @@ def _parse_file(path: Path, table: Table, spec: Spec) -> dict[str, Parsed]:
                               "overflow sums of squares", "rescale the outcome (for example "
                               "to thousands or millions)")
     for name in list(cols.stratum) + ([cols.cluster] if cols.cluster else []):
-        out[name] = parse_label(table.columns[name])
+        out[name] = parse_label(decimal_label(table.columns[name], spec.reading.decimal))
     return out
 
 
@@ -312,7 +332,7 @@ def load_data(spec: Spec) -> Dataset:
     n_read = n_dropped = 0
     digests = _distinct_digests(spec)
     for index, path in enumerate(spec.data):
-        table = read_table(path, list(roles))
+        table = read_table(path, list(roles), spec.reading.delimiter)
         _check_columns(path, table, spec, roles)
         parsed = _parse_file(path, table, spec)
         n = table.rows.size

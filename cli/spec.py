@@ -24,6 +24,7 @@ from strativ.estimators.options import (
 )
 
 from .errors import SpecError
+from .spec_reading import READING_KEYS, ReadOptions, read_options
 from .tables import DATA_SUFFIXES, FORMATS_TEXT
 from .yamlmarks import KeyPath, compose_with_lines, dotted, line_of
 
@@ -51,6 +52,8 @@ _SECTIONS: dict[str, tuple[str, ...] | None] = {
     "inference": ("variance", "level"),
     "output": ("dir", "formats"),
     "missing": ("drop_incomplete_rows",),
+    "reading": READING_KEYS,
+    "engine": None,
 }
 _REQUIRED_COLUMNS = ("outcome", "take_up", "offer", "stratum")
 _GLOB_CHARS = set("*?[")
@@ -165,6 +168,8 @@ class Spec:
     data_kind: str = "rows"
     """``"rows"`` (`data`: one row per unit) or ``"moments"`` (`moments`: moment tables
     written by `strativ cells`)."""
+    reading: ReadOptions = ReadOptions()
+    """How the files are read (separator, decimal mark, offer/take-up codes) and the engine."""
     lines: Mapping[KeyPath, int] = field(default_factory=dict, repr=False, compare=False)
     """Spec line of each key path, for messages raised after loading."""
 
@@ -202,6 +207,7 @@ class Spec:
             "inference": {"variance": self.variance, "level": self.level},
             "output": {"dir": str(self.output_dir), "formats": list(self.formats)},
             "missing": {"drop_incomplete_rows": self.drop_incomplete_rows},
+            "reading": self.reading.to_dict(),
         }
 
 
@@ -389,6 +395,7 @@ def load_spec(path: Path | str) -> Spec:
         formats=check.choices(output.get("formats"), ("output", "formats"), FORMATS, FORMATS),
         drop_incomplete_rows=drop,
         data_kind="moments" if kind == "moments" else "rows",
+        reading=read_options(path, lines, top.get("reading"), top.get("engine")),
         lines=dict(lines),
     )
 

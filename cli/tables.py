@@ -9,6 +9,7 @@ name ending picks its reader (`DATA_SUFFIXES`); any other ending is refused.
 from __future__ import annotations
 
 import csv
+import functools
 import gzip
 import io
 import zlib
@@ -61,7 +62,8 @@ def data_format(path: Path) -> str | None:
     return None
 
 
-def read_table(path: Path, wanted: Sequence[str] | None = None) -> Table:
+def read_table(path: Path, wanted: Sequence[str] | None = None,
+               delimiter: str | None = None) -> Table:
     """Read a data file into columns of raw cells.
 
     Parameters
@@ -70,6 +72,9 @@ def read_table(path: Path, wanted: Sequence[str] | None = None) -> Table:
         The file; its name ending picks the reader (`DATA_SUFFIXES`).
     wanted : sequence of str, optional
         Columns to keep (default all). Absent names are skipped; the caller checks them.
+    delimiter : str, optional
+        Field separator of CSV and TSV files (the spec's ``reading.delimiter``); default a
+        comma, a tab for files ending in .tsv or .tsv.gz.
 
     Returns
     -------
@@ -84,10 +89,8 @@ def read_table(path: Path, wanted: Sequence[str] | None = None) -> Table:
         UTF-8, has ragged rows, or no data rows.
     """
     reader = data_format(path)
-    if reader == "csv":
-        return _read_csv(path, wanted, ",")
-    if reader == "tsv":
-        return _read_csv(path, wanted, "\t")
+    if reader in ("csv", "tsv"):
+        return _read_csv(path, wanted, delimiter or ("," if reader == "csv" else "\t"))
     if reader == "parquet":
         return _read_parquet(path, wanted)
     if reader == "foreign":
@@ -114,7 +117,7 @@ def _read_bytes(path: Path) -> bytes:
 
 def _read_csv(path: Path, wanted: Sequence[str] | None, delimiter: str) -> Table:
     raw = _read_bytes(path)
-    kind = "CSV" if delimiter == "," else "TSV"
+    kind = "TSV" if delimiter == "\t" else "CSV"
     if not raw.strip():
         raise DataError(path, None, (), "the file is empty",
                         f"export the data again; a {kind} needs a header line and data rows")
@@ -159,7 +162,7 @@ def _read_csv(path: Path, wanted: Sequence[str] | None, delimiter: str) -> Table
                 _check_delimiter(path, header, header_line, delimiter)
                 continue
             if len(record) != len(header):
-                one = "comma" if delimiter == "," else "tab"
+                one = _DELIMITER_NAMES[delimiter][:-1]
                 raise DataError(path, None, (len(records) + 1,),
                                 f"line {start} has {len(record)} fields but the header has "
                                 f"{len(header)}", f"check for a stray {one} or an unclosed "
@@ -181,16 +184,16 @@ def _read_csv(path: Path, wanted: Sequence[str] | None, delimiter: str) -> Table
                   header_line)
 
 
+@functools.cache
 def _solid(delimiter: str) -> np.ndarray:
+    """The bytes that make a line non-blank for certain (ASCII, neither space nor the
+    delimiter)."""
     solid = np.ones(256, dtype=bool)
     solid[[c for c in range(128) if chr(c).isspace()] + [ord(delimiter)] +
           list(range(128, 256))] = False
     return solid
 
 
-_SOLID = {delimiter: _solid(delimiter) for delimiter in (",", "\t")}
-"""Per delimiter, the bytes that make a line non-blank for certain (ASCII, neither space nor
-the delimiter)."""
 
 
 def _read_plain_csv(raw: bytes, text: str, wanted: Sequence[str] | None,
@@ -222,7 +225,7 @@ def _read_plain_csv(raw: bytes, text: str, wanted: Sequence[str] | None,
     n_commas = np.searchsorted(commas, ends) - np.searchsorted(commas, starts)
     solid = np.zeros(starts.size, dtype=bool)
     if codes.size:
-        solid = np.logical_or.reduceat(_SOLID[delimiter][codes],
+        solid = np.logical_or.reduceat(_solid(delimiter)[codes],
                                        np.minimum(starts, codes.size - 1)) & (ends > starts)
     kept = solid
     for k in np.flatnonzero(~solid):
@@ -249,11 +252,13 @@ def _check_delimiter(path: Path, header: list[str], header_line: str,
     if len(header) > 1:
         return
     own = _DELIMITER_NAMES[delimiter]
-    fix = "save the file as comma-separated CSV" if delimiter == "," else \
-        "save the file tab-separated"
+    fix = {",": "save the file as comma-separated CSV", "\t": "save the file tab-separated"
+           }.get(delimiter, f"save the file separated by {own}")
     for delim, plural in _DELIMITER_NAMES.items():
         if delim != delimiter and delim in header_line:
-            other = {",": "; or name it to end in .csv", "\t": "; or name it to end in .tsv"}
+            other = {",": "; or name it to end in .csv", "\t": "; or name it to end in .tsv",
+                     ";": "; or add  reading: {delimiter: ';'}  to the spec",
+                     "|": "; or add  reading: {delimiter: '|'}  to the spec"}
             raise DataError(path, None, (), f"the fields seem to be separated by {plural}, not "
                             f"{own} (the header reads as one column)", fix + other.get(delim, ""))
     raise DataError(path, None, (), "the header has a single column; strativ needs at least "

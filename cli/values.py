@@ -20,10 +20,13 @@ import numpy as np
 __all__ = [
     "MISSING_TOKENS",
     "Parsed",
+    "decimal_point",
     "is_missing",
     "parse_binary",
     "parse_number",
     "parse_label",
+    "recode",
+    "decimal_label",
 ]
 
 MISSING_TOKENS = frozenset({"", "na", "n/a", "nan", "null", "none"})
@@ -319,3 +322,72 @@ def _slow_label(cells: Sequence[Any]) -> Parsed:
         else:
             values[i] = _label(cell)
     return Parsed(values, missing, np.zeros(0, dtype=np.int64))
+
+
+_REFUSED = object()
+"""A cell outside the spec's codes: every parser refuses it."""
+
+
+def recode(cells: Sequence[Any], codes: dict[str, int]) -> list[Any]:
+    """Replace each cell by its 0/1 meaning under the spec's codes of an offer or take-up column.
+
+    Parameters
+    ----------
+    cells : sequence
+        Text or typed cells.
+    codes : dict
+        Code (lower case, as `spec_reading.ReadOptions.codes_of` gives) -> 0 or 1.
+
+    Returns
+    -------
+    list
+        Per cell: unchanged when missing; the code's 0 or 1 when its text (trimmed, any case)
+        or, for a typed number, its value equals a code; otherwise a marker that
+        `parse_binary` refuses, so the caller's message quotes the cell as written.
+    """
+    numeric: dict[float, int] = {}
+    for code, meaning in codes.items():
+        try:
+            numeric[float(code)] = meaning
+        except ValueError:
+            pass
+    out: list[Any] = []
+    for cell in cells:
+        if is_missing(cell):
+            out.append(cell)
+        elif isinstance(cell, (bool, np.bool_)):
+            out.append(codes.get(str(bool(cell)).lower(), _REFUSED))
+        elif isinstance(cell, str):
+            out.append(codes.get(cell.strip().lower(), _REFUSED))
+        elif isinstance(cell, Real):
+            out.append(numeric.get(float(cell), _REFUSED))
+        else:
+            out.append(_REFUSED)
+    return out
+
+
+def decimal_point(cells: Sequence[Any], decimal: str) -> Sequence[Any]:
+    """Text cells with a decimal comma written with a point (``decimal`` ``","``); else as given.
+
+    A cell with both marks (``1.234,5``) becomes ``1.234.5``, which no parser reads as a number:
+    thousands separators stay refused.
+    """
+    if decimal == ".":
+        return cells
+    return [c.replace(",", ".") if isinstance(c, str) else c for c in cells]
+
+
+_COMMA_NUMBER = re.compile(r"[-+]?[0-9]+,[0-9]+")
+"""A label written as a number with a decimal comma (``109,0``)."""
+COMMA_NUMBER = "^[-+]?[0-9]+,[0-9]+$"
+"""The same pattern for the engines' SQL (`units_sql`)."""
+
+
+def decimal_label(cells: Sequence[Any], decimal: str) -> Sequence[Any]:
+    """Label cells written as a number with a decimal comma (``109,0``) with a point instead
+    (``decimal`` ``","``), so a numeric id reads as the same number in every format; other
+    cells (``Smith, J``) as given."""
+    if decimal == ".":
+        return cells
+    return [c.strip().replace(",", ".") if isinstance(c, str) and _COMMA_NUMBER.fullmatch(
+        c.strip()) else c for c in cells]

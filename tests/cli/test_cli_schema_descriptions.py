@@ -33,6 +33,12 @@ design:
   offer_probability: design_probability
 missing:
   drop_incomplete_rows: true
+reading:
+  delimiter: ';'
+  decimal: ','
+  codes:
+    offer: {won: 1, lost: 0}
+    take_up: {'yes': 1, 'no': 0}
 """
 
 
@@ -144,7 +150,8 @@ def _walk_document(schema: dict[str, Any], node: dict[str, Any], path: str, valu
 
 def _variant_rows() -> list[dict[str, Any]]:
     """The demo rows of all three rounds with a ``round`` column and each district's realized
-    offer share (two decimals) as ``design_probability``; one offer left empty (a dropped
+    offer share (two decimals) as ``design_probability``, written as a semicolon export with
+    decimal commas and worded offer and take-up codes; one offer left empty (a dropped
     row), every 97th outcome left empty (attrition), every unit of Lakeshore in round 2
     offered (an excluded stratum) and take-up flipped in Millbrook round 3 (a negative first
     stage)."""
@@ -168,6 +175,11 @@ def _variant_rows() -> list[dict[str, Any]]:
         if i % 97 == 0:
             row["gas_therms"] = ""
     rows[5]["won_lottery"] = ""
+    for row in rows:  # a semicolon export with decimal commas and worded codes
+        row["gas_therms"] = str(row["gas_therms"]).replace(".", ",")
+        row["design_probability"] = str(row["design_probability"]).replace(".", ",")
+        row["won_lottery"] = {"1": "won", "0": "lost", "": ""}[row["won_lottery"]]
+        row["retrofitted"] = {"1": "yes", "0": "no"}[row["retrofitted"]]
     return rows
 
 
@@ -183,7 +195,7 @@ def documents(tmp_path_factory: pytest.TempPathFactory) -> dict[str, dict[str, A
     root = tmp_path_factory.mktemp("described")
     rows = _variant_rows()
     with (root / "rounds.csv").open("w", newline="", encoding="utf-8") as handle:
-        writer = csv.DictWriter(handle, fieldnames=list(rows[0]))
+        writer = csv.DictWriter(handle, fieldnames=list(rows[0]), delimiter=";")
         writer.writeheader()
         writer.writerows(rows)
     (root / "rounds.yaml").write_text(VARIANT_SPEC, encoding="utf-8")
