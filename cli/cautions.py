@@ -12,6 +12,7 @@ from typing import TYPE_CHECKING, Any
 
 from strativ.estimators import Comparison
 from strativ.estimators.options import WEAK_FIRST_STAGE_F
+from strativ.estimators.profile import CovariateProfile
 
 from .grouped import GroupedData
 from .spec import Spec
@@ -19,8 +20,8 @@ from .spec import Spec
 if TYPE_CHECKING:
     from .runner import OutcomeResult
 
-__all__ = ["cluster_form", "variance_used", "data_warnings", "fit_warnings",
-           "offer_count_warnings"]
+__all__ = ["balance_warnings", "cluster_form", "variance_used", "data_warnings",
+           "fit_warnings", "offer_count_warnings"]
 
 _LISTED = 5
 """Strata named in one warning before "and N more"."""
@@ -85,13 +86,13 @@ def data_warnings(spec: Spec, dataset: GroupedData) -> list[str]:
     """
     out = []
     cols = spec.columns
-    if cols.covariates and spec.data_kind == "moments":
-        out.append("covariates " + ", ".join(cols.covariates) + " are not in a moment table "
-                   "and were not used: every estimate is unadjusted")
+    if cols.covariates and not dataset.roles.covariates:
+        out.append("covariates " + ", ".join(cols.covariates) + " are not in the moment table "
+                   "and were not used: no balance check, and every estimate is unadjusted")
     elif cols.covariates:
-        out.append("covariates " + ", ".join(cols.covariates) + " were checked and recorded "
-                   "but not used: the estimators do not adjust for covariates yet, so every "
-                   "estimate is unadjusted")
+        out.append("covariates " + ", ".join(cols.covariates) + " are used for the balance "
+                   "check and the complier means, not for adjustment: the estimators do not "
+                   "adjust for covariates yet, so every estimate is unadjusted")
     form = cluster_form(spec)
     if form is not None and spec.variance != "cluster":
         out.append(f"cluster column '{cols.cluster}' is used: variance '{spec.variance}' "
@@ -209,4 +210,31 @@ def fit_warnings(outcomes: Sequence[OutcomeResult]) -> list[str]:
             shared.setdefault(body, []).append(name)
     out.extend(", ".join(f"'{n}'" for n in names) + f": {body}"
                for body, names in shared.items())
+    return out
+
+
+BALANCE_LEVEL = 0.05
+"""The joint balance test's p-value below which a warning is given."""
+
+
+def balance_warnings(profile: CovariateProfile | None) -> list[str]:
+    """Return the warnings of the balance check: each covariate whose standardized difference
+    between offer arms exceeds the flag, and a joint test that rejects balance."""
+    if profile is None:
+        return []
+    out = []
+    for row in profile.rows:
+        if row.flagged:
+            shown = ", ".join(f"{name} {value:+.2f}" for name, value in
+                              (("within strata", row.smd_within),
+                               ("weighted", row.smd_weighted)) if value is not None)
+            out.append(f"covariate '{row.covariate}' differs between offer arms beyond the "
+                       f"usual flag (|standardized difference| > {profile.flag:g}): {shown}; "
+                       "check the randomization and consider adjusting for it")
+    joint = profile.joint
+    if joint.p_value is not None and joint.p_value < BALANCE_LEVEL:
+        out.append(f"the joint balance test rejects equal covariate means between offer arms "
+                   f"within strata (chi-squared {joint.statistic:.2f} on {joint.df} df, "
+                   f"p = {joint.p_value:.3g}); chance imbalance happens in 1 of 20 trials, "
+                   "but check how offers were assigned")
     return out

@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 
 from strativ.estimators import OUTCOME_LIMIT, CellTable, cells_from_moments, group_query
+from strativ.estimators.profile import CovariateProfile, covariate_profile
 
 from .errors import DataError
 from .loading import (
@@ -146,6 +147,36 @@ class GroupedData:
         except TypeError:
             return out
 
+    def covariate_profile(self, probabilities: dict[Any, float] | None) -> CovariateProfile | None:
+        """Balance and complier means of the spec's covariates over every kept row (None
+        without covariates, or for a moment table, which carries none).
+
+        Raises
+        ------
+        strativ.estimators.EstimatorError
+            As `strativ.estimators.profile.covariate_profile`.
+        """
+        roles = self.roles.covariates
+        if not roles:
+            return None
+        g = self.groups
+        k = len(roles)
+
+        def columns(pattern: str) -> np.ndarray:
+            return np.column_stack([g[pattern.format(x)].to_numpy(dtype=float, na_value=0.0)
+                                    for x in roles])
+
+        cross = np.zeros((len(g), k, k))
+        for j, x in enumerate(roles):
+            cross[:, j, j] = g[f"sum_{x}_sq"].to_numpy(dtype=float, na_value=0.0)
+            for i, w in enumerate(roles[j + 1:], start=j + 1):
+                cross[:, j, i] = cross[:, i, j] = g[f"cross_{x}_{w}"].to_numpy(
+                    dtype=float, na_value=0.0)
+        return covariate_profile(
+            self.spec.columns.covariates, g["stratum"].tolist(), g["offer"].to_numpy(),
+            g["take_up"].to_numpy(), g["n"].to_numpy(), columns("n_{}"), columns("sum_{}"),
+            columns("sum_{}_sq"), columns("centre_{}"), cross, probability=probabilities)
+
     @property
     def labels(self) -> list[Any]:
         """Stratum labels of the kept rows."""
@@ -170,8 +201,9 @@ class GroupedData:
 def _query(spec: Spec, roles: Roles) -> str:
     ranged = (roles.probability,) if roles.probability else ()
     return group_query(UNITS_VIEW, keys=roles.keys, centre_keys=roles.strata,
-                       outcomes=roles.outcomes, counted=roles.flags, ranged=ranged,
-                       total="FSUM", centre_rows=CENTRE_ROWS)
+                       outcomes=roles.outcomes, covariates=roles.covariates,
+                       counted=roles.flags, ranged=ranged, total="FSUM",
+                       centre_rows=CENTRE_ROWS)
 
 
 def group_data(spec: Spec) -> GroupedData:
@@ -318,12 +350,14 @@ def from_rows(spec: Spec, dataset: Dataset) -> GroupedData:
     roles = roles_of(spec)
     units = pd.DataFrame({"file": dataset.file_index, "s0": dataset.stratum,
                           "offer": dataset.offer, "take_up": dataset.take_up})
-    roles = Roles(strata=("s0",), outcomes=roles.outcomes, covariates=(),
+    roles = Roles(strata=("s0",), outcomes=roles.outcomes, covariates=roles.covariates,
                   cluster=roles.cluster, probability=roles.probability)
     if roles.cluster:
         units["cluster"] = dataset.cluster
     for role, name in zip(roles.outcomes, spec.columns.outcome, strict=True):
         units[role] = dataset.outcomes[name]
+    for role, name in zip(roles.covariates, spec.columns.covariates, strict=True):
+        units[role] = dataset.covariates[name]
     if roles.probability:
         units["prob"] = dataset.offer_probability
         units["prob_missing"] = False

@@ -12,7 +12,11 @@ Columns (one row per group; rows with the same key are parts of one group and ar
 - ``n``: rows in the group;
 - per outcome ``y``: ``n_y`` (rows where ``y`` is present), ``sum_y`` and ``sum_y_sq`` (sums
   of ``y − centre_y`` and of its square over those rows), ``centre_y`` (any value near the
-  stratum's outcomes; the query uses the stratum's smallest), ``max_abs_y`` (largest |y|).
+  stratum's outcomes; the query uses the stratum's smallest), ``max_abs_y`` (largest |y|);
+- per covariate ``x`` (when the spec names covariates): ``n_x``, ``sum_x``, ``sum_x_sq``,
+  ``centre_x`` likewise over all rows of the group, and per pair ``x``, ``w`` (spec order)
+  ``cross_x_w``, the sum of the products of the centred values, a missing value counting as
+  its centre. A table without them runs everything except the covariate checks.
 
 Rows dropped for a missing offer, take-up or stratum and the row files' fingerprints are not
 in the table: a run on it records the table's own fingerprint and its rows as kept rows.
@@ -41,6 +45,18 @@ __all__ = ["MOMENT_FIELDS", "moment_sql", "read_moment_table", "write_moment_tab
 
 MOMENT_FIELDS = ("n_{}", "sum_{}", "sum_{}_sq", "centre_{}", "max_abs_{}")
 """Per-outcome columns of the table, formatted with the outcome's name."""
+COVARIATE_FIELDS = ("n_{}", "sum_{}", "sum_{}_sq", "centre_{}")
+"""Per-covariate columns of the table (over all rows of the group)."""
+
+
+def _covariate_columns(names: tuple[str, ...], roles: tuple[str, ...]) -> list[tuple[str, str]]:
+    """(table column, grouped column) of every covariate moment: the per-covariate fields and
+    ``cross_x_w`` for each pair."""
+    out = [(f.format(name), f.format(role)) for name, role in zip(names, roles, strict=True)
+           for f in COVARIATE_FIELDS]
+    out += [(f"cross_{names[j]}_{names[i]}", f"cross_{roles[j]}_{roles[i]}")
+            for j in range(len(names)) for i in range(j + 1, len(names))]
+    return out
 
 
 def _keys(spec: Spec) -> list[str]:
@@ -65,7 +81,8 @@ def moment_sql(spec: Spec, table: str = "units") -> str:
         Standard SQL (common table expressions, ``GROUP BY``, ``SUM``) for any engine.
     """
     return group_query(table, keys=_keys(spec), centre_keys=list(spec.columns.stratum),
-                       outcomes=list(spec.columns.outcome))
+                       outcomes=list(spec.columns.outcome),
+                       covariates=list(spec.columns.covariates))
 
 
 def _table(data: GroupedData) -> pd.DataFrame:
@@ -88,6 +105,9 @@ def _table(data: GroupedData) -> pd.DataFrame:
             values = g[field.format(role)]
             out[field.format(name)] = values.to_numpy(dtype=np.int64) if field == "n_{}" \
                 else values.to_numpy(dtype=float, na_value=np.nan)
+    for name, column in _covariate_columns(cols.covariates, data.roles.covariates):
+        out[name] = g[column].to_numpy(dtype=np.int64) if name.startswith("n_") \
+            else g[column].to_numpy(dtype=float, na_value=np.nan)
     return out
 
 
@@ -180,11 +200,12 @@ def read_moment_table(spec: Spec) -> GroupedData:
     """
     cols = spec.columns
     roles = roles_of(spec)
-    roles = Roles(strata=("s0",), outcomes=roles.outcomes, covariates=(),
-                  cluster=roles.cluster, probability=None)
+    covariates = _covariate_columns(cols.covariates, roles.covariates)
     pieces, files = [], []
+    carried = True
     for path in spec.data:
         frame = _read(path)
+        carried = carried and all(name in frame.columns for name, _ in covariates)
         wanted = _keys(spec) + ["n"] + [f.format(y) for y in cols.outcome for f in MOMENT_FIELDS]
         _need(frame, path, wanted, spec)
         piece = pd.DataFrame()
@@ -211,8 +232,14 @@ def read_moment_table(spec: Spec) -> GroupedData:
                 raise DataError(path, f"n_{name}", (int(over[0]) + 1,),
                                 f"row {int(over[0]) + 1} counts more rows with '{name}' than "
                                 "rows in the group", "write the table again with 'strativ cells'")
+        for name, column in covariates:
+            if name in frame.columns:
+                piece[column] = _numbers(frame, path, name, whole=name.startswith("n_"))
         pieces.append(piece)
         files.append(file_fingerprint(path, len(frame)))
+    roles = Roles(strata=("s0",), outcomes=roles.outcomes,
+                  covariates=roles.covariates if carried and covariates else (),
+                  cluster=roles.cluster, probability=None)
     table = pd.concat(pieces, ignore_index=True)
     texts = [table[name].to_numpy(dtype=object).astype(str) for name in cols.stratum]
     labels = texts[0] if len(texts) == 1 else np.asarray(
@@ -226,6 +253,9 @@ def read_moment_table(spec: Spec) -> GroupedData:
     for role in roles.outcomes:
         for field in MOMENT_FIELDS:
             groups[field.format(role)] = table[field.format(role)]
+    if roles.covariates:
+        for _, column in covariates:
+            groups[column] = table[column]
     return GroupedData(spec=spec, files=tuple(files), groups=groups, roles=roles,
                        n_read=int(groups["n"].sum()), dropped=(), n_dropped=0,
                        stratum_parts={} if len(texts) == 1 else _label_parts(labels, texts),

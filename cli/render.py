@@ -19,6 +19,7 @@ from rich.table import Table
 from rich.text import Text
 
 from strativ.estimators.options import USES_ASSIGNMENT, USES_SAMPLING, WEAK_FIRST_STAGE_F
+from strativ.estimators.profile import CovariateProfile
 
 from .cautions import variance_used
 from .console import make_console, render_error
@@ -227,6 +228,39 @@ def _outcome(console: Console, result: OutcomeResult) -> None:
         console.print(_indented("note: ", _t(note)))
 
 
+def _smd_text(value: float | None, flag: float) -> str:
+    if value is None:
+        return "\u2013"
+    return format_number(value, digits=3) + (" !" if abs(value) > flag else "  ")
+
+
+def _covariates(console: Console, profile: CovariateProfile) -> None:
+    rows = profile.rows
+    console.print()
+    console.rule(Text("covariates", "bold"), align="left")
+    console.print("balance between offer arms (standardized differences) and means among "
+                  "compliers:")
+    _print_table(console, _col("covariate", (r.covariate for r in rows)), [
+        [_col("mean\noffered", (format_number(r.mean_offered) for r in rows)),
+         _col("mean not\noffered", (format_number(r.mean_not_offered) for r in rows)),
+         _col("SMD\nwithin", (_smd_text(r.smd_within, profile.flag) for r in rows)),
+         _col("SMD\nweighted", (_smd_text(r.smd_weighted, profile.flag) for r in rows))],
+        [_col("mean\nall units", (format_number(r.mean_all) for r in rows)),
+         _col("mean\ncompliers", (format_number(r.mean_compliers) for r in rows))],
+    ])
+    if any(r.flagged for r in rows):
+        console.print(_indented(f"! |standardized difference| above {profile.flag:g}"))
+    joint = profile.joint
+    if joint.statistic is None:
+        console.print(_indented("joint balance test: undefined (", _t(joint.reason or ""), ")"))
+    else:
+        console.print(_indented(f"joint balance test: chi-squared {joint.statistic:.2f} on "
+                                f"{joint.df} df, p = {format_number(joint.p_value, digits=3)}"))
+    if profile.probabilities == "design":
+        console.print(_indented("weighted differences and complier weights use the design "
+                                "probabilities"))
+
+
 def render_run(console: Console, run: Run) -> None:
     """Print the report of a run: header, then per outcome the comparison, the per-stratum
     table, exclusions and the reading; then the assumptions and the caution.
@@ -241,6 +275,8 @@ def render_run(console: Console, run: Run) -> None:
     _header(console, run.spec, run.dataset)
     for result in run.outcomes:
         _outcome(console, result)
+    if run.profile is not None:
+        _covariates(console, run.profile)
     console.print()
     console.print(_t(ASSUMPTIONS))
     console.print(_t(REVIEW))

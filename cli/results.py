@@ -232,6 +232,7 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
         "exclusions": exclusions,
         "attrition": [{**a.to_dict(), **stratum_columns(run, a.stratum)}
                       for r in run.outcomes for a in r.attrition],
+        "covariates": None if run.profile is None else run.profile.to_dict(),
         "warnings": list(run.warnings),
     }
 

@@ -23,8 +23,15 @@ from strativ.estimators import (
     excluded_strata,
     fit_all,
 )
+from strativ.estimators.profile import CovariateProfile
 
-from .cautions import data_warnings, fit_warnings, offer_count_warnings, variance_used
+from .cautions import (
+    balance_warnings,
+    data_warnings,
+    fit_warnings,
+    offer_count_warnings,
+    variance_used,
+)
 from .core_errors import located_error
 from .errors import DataError
 from .grouped import GroupedData, from_rows
@@ -96,6 +103,8 @@ class Run:
     """One result per outcome, in spec order."""
     warnings: tuple[str, ...]
     """Plain-language warnings for the reader."""
+    profile: CovariateProfile | None = None
+    """Balance and complier means of the covariates (None without covariates)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -397,5 +406,7 @@ def run_spec(spec: Spec, data: GroupedData | Dataset) -> Run:
         data = from_rows(spec, data)
     probabilities = design_probabilities(spec, data)
     results = [_fit_outcome(spec, data, name, probabilities) for name in data.outcomes]
+    profile = data.covariate_profile(probabilities)
     return Run(spec, data, probabilities, tuple(results),
-               tuple(data_warnings(spec, data) + fit_warnings(results)))
+               tuple(data_warnings(spec, data) + fit_warnings(results)
+                     + balance_warnings(profile)), profile)

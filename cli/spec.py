@@ -98,7 +98,7 @@ class Columns:
     cluster: str | None
     """Optional cluster column (the unit of assignment)."""
     covariates: tuple[str, ...]
-    """Baseline covariates: validated and recorded; not yet used by the estimators."""
+    """Baseline covariates: balance and complier means are reported; not yet used to adjust."""
 
     def roles(self) -> list[tuple[str, str]]:
         """Return (role, column) pairs in spec order, one per named column."""

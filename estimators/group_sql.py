@@ -36,6 +36,7 @@ class GroupColumn:
 def group_columns(
     outcomes: Sequence[str],
     *,
+    covariates: Sequence[str] = (),
     counted: Sequence[str] = (),
     ranged: Sequence[str] = (),
     total: str = "SUM",
@@ -46,6 +47,9 @@ def group_columns(
     ----------
     outcomes : sequence of str
         Outcome columns of the source (numeric or NULL).
+    covariates : sequence of str, default=()
+        Covariate columns of the source (numeric or NULL), centred per stratum as the
+        outcomes are.
     counted : sequence of str, default=()
         Integer flag columns (0/1) whose sum per group is wanted (for example, values a
         check refuses).
@@ -60,8 +64,20 @@ def group_columns(
     -------
     tuple of GroupColumn
         ``n`` (rows); per outcome ``v``: ``n_v`` (rows where present), ``sum_v`` and
-        ``sum_v_sq`` (of ``v`` minus its centre), ``centre_v`` and ``max_abs_v``; per counted
-        flag ``f``: ``f``; per ranged column ``r``: ``min_r``, ``max_r``.
+        ``sum_v_sq`` (of ``v`` minus its centre), ``centre_v`` and ``max_abs_v``; per
+        covariate ``x``, over all rows: ``n_x``, ``sum_x``, ``sum_x_sq``, ``centre_x``, and
+        ``cross_x_w`` (of centred ``x`` times centred ``w``, ``x`` before ``w``); per
+        outcome ``v`` and covariates ``x``, ``w`` (``x`` before ``w`` in the given order),
+        over the rows where ``v`` is present: ``n_v_x`` (rows where ``x`` is present too),
+        ``sum_v_x``, ``sum_v_v_x`` (of centred ``v`` times centred ``x``) and ``sum_v_x_w``
+        (of centred ``x`` times centred ``w``), a missing covariate counting as its centre;
+        per counted flag ``f``: ``f``; per ranged column ``r``: ``min_r``, ``max_r``.
+
+    Notes
+    -----
+    The covariate columns are the moments that balance, complier characteristics and
+    covariate adjustment read (METHODS.md §5 and §6); their number grows with the square of
+    the number of covariates.
     """
     columns = [GroupColumn("n", "COUNT(*)")]
     for v in outcomes:
@@ -73,6 +89,31 @@ def group_columns(
             GroupColumn(f"centre_{v}", f"MIN({_quote('centre_' + v)})"),
             GroupColumn(f"max_abs_{v}", f"MAX(ABS({q}))"),
         ]
+    filled = {x: f"COALESCE({_quote('centred_' + x)}, CAST(0 AS DOUBLE))" for x in covariates}
+    for x in covariates:
+        c = _quote("centred_" + x)
+        columns += [
+            GroupColumn(f"n_{x}", f"COUNT({_quote(x)})"),
+            GroupColumn(f"sum_{x}", f"{total}({c})"),
+            GroupColumn(f"sum_{x}_sq", f"{total}({c} * {c})"),
+            GroupColumn(f"centre_{x}", f"MIN({_quote('centre_' + x)})"),
+        ]
+    columns += [GroupColumn(f"cross_{x}_{w}", f"{total}({filled[x]} * {filled[w]})")
+                for j, x in enumerate(covariates) for w in covariates[j + 1:]]
+    for v in outcomes:
+        present, c = f"{_quote(v)} IS NOT NULL", _quote("centred_" + v)
+        for j, x in enumerate(covariates):
+            columns += [
+                GroupColumn(f"n_{v}_{x}", f"COUNT(CASE WHEN {present} THEN {_quote(x)} END)"),
+                GroupColumn(f"sum_{v}_{x}",
+                            f"{total}(CASE WHEN {present} THEN {filled[x]} END)"),
+                GroupColumn(f"sum_{v}_{v}_{x}", f"{total}({c} * {filled[x]})"),
+            ]
+            columns += [
+                GroupColumn(f"sum_{v}_{x}_{w}",
+                            f"{total}(CASE WHEN {present} THEN {filled[x]} * {filled[w]} END)")
+                for w in covariates[j:]
+            ]
     columns += [GroupColumn(f, f"SUM(CAST({_quote(f)} AS BIGINT))") for f in counted]
     for r in ranged:
         columns += [GroupColumn(f"min_{r}", f"MIN({_quote(r)})"),
@@ -86,6 +127,7 @@ def group_query(
     keys: Sequence[str],
     centre_keys: Sequence[str],
     outcomes: Sequence[str],
+    covariates: Sequence[str] = (),
     counted: Sequence[str] = (),
     ranged: Sequence[str] = (),
     total: str = "SUM",
@@ -103,7 +145,7 @@ def group_query(
         The subset of `keys` within which each outcome is centred (the stratum parts).
     outcomes : sequence of str
         Numeric outcome columns; NULL where missing.
-    counted, ranged : sequence of str, default=()
+    covariates, counted, ranged : sequence of str, default=()
         As in `group_columns`.
     total : str, default="SUM"
         As in `group_columns`.
@@ -125,7 +167,7 @@ def group_query(
         When a name is invalid (see `moment_query`), a centre key is not a key, or a column
         is named twice.
     """
-    names = [*keys, *outcomes, *counted, *ranged]
+    names = [*keys, *outcomes, *covariates, *counted, *ranged]
     for name in names:
         _quote(name)
     repeated = sorted({n for n in names if names.count(n) > 1})
@@ -139,15 +181,16 @@ def group_query(
         raise InputError("centre_rows", f"expected a positive whole number, got {centre_rows!r}.")
     table = _source_name(source)
     centred = _quote("strativ_centred")
-    if outcomes:
-        prefix = _centring(table, centre_keys, outcomes, centre_rows)
+    if outcomes or covariates:
+        prefix = _centring(table, centre_keys, [*outcomes, *covariates], centre_rows)
         body = centred
     else:
         prefix, body = "", table
     groups = ", ".join(_quote(k) for k in keys)
     sums = ",\n".join(
         f"    {c.aggregate} AS {_quote(c.name)}"
-        for c in group_columns(outcomes, counted=counted, ranged=ranged, total=total)
+        for c in group_columns(outcomes, covariates=covariates, counted=counted, ranged=ranged,
+                               total=total)
     )
     return f"{prefix}SELECT\n    {groups},\n{sums}\nFROM {body}\nGROUP BY {groups}\n"
 

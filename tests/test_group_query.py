@@ -65,3 +65,48 @@ def test_the_query_refuses_a_bad_centre_count_or_a_repeated_column() -> None:
         group_query("units", keys=["s", "y"], centre_keys=["s"], outcomes=["y"])
     with pytest.raises(InputError, match="SUM or FSUM"):
         group_query("units", keys=["s"], centre_keys=["s"], outcomes=["y"], total="AVG")
+
+
+def _with_covariates() -> pd.DataFrame:
+    units = _units()
+    rng = np.random.default_rng(SEED + 1)
+    n = len(units)
+    units["a"] = 5e6 + rng.normal(0.0, 2.0, n) + units["s"]
+    units["b"] = rng.integers(0, 2, n).astype(float)
+    units.loc[rng.random(n) < 0.03, "a"] = np.nan
+    units.loc[rng.random(n) < 0.02, "b"] = np.nan
+    return units
+
+
+@pytest.mark.parametrize("centre_rows", [None, 50])
+def test_covariate_moments_equal_direct_sums_of_the_centred_values(centre_rows) -> None:
+    units = _with_covariates()
+    sql = group_query("units", keys=["s", "z", "d"], centre_keys=["s"], outcomes=["y"],
+                      covariates=["a", "b"], total="FSUM", centre_rows=centre_rows)
+    connection = duckdb.connect()
+    connection.register("units", units)
+    got = connection.execute(sql).df().set_index(["s", "z", "d"]).sort_index()
+    for key, rows in units.groupby(["s", "z", "d"]):
+        row = got.loc[key]
+        # reference: numpy sums of each value minus the centre the query reports; a missing
+        # covariate counts as its centre (a zero after centring)
+        centred = {v: rows[v].to_numpy() - row[f"centre_{v}"] for v in ("y", "a", "b")}
+        filled = {x: np.nan_to_num(centred[x], nan=0.0) for x in ("a", "b")}
+        has_y = ~np.isnan(centred["y"])
+        for x in ("a", "b"):
+            assert row[f"n_{x}"] == np.count_nonzero(~np.isnan(centred[x]))
+            assert row[f"sum_{x}"] == pytest.approx(np.nansum(centred[x]), rel=1e-12, abs=1e-9)
+            assert row[f"sum_{x}_sq"] == pytest.approx(np.nansum(centred[x] ** 2), rel=1e-12)
+            assert row[f"n_y_{x}"] == np.count_nonzero(has_y & ~np.isnan(centred[x]))
+            assert row[f"sum_y_{x}"] == pytest.approx(filled[x][has_y].sum(), rel=1e-12,
+                                                      abs=1e-9)
+            assert row[f"sum_y_y_{x}"] == pytest.approx(
+                (centred["y"][has_y] * filled[x][has_y]).sum(), rel=1e-12, abs=1e-9)
+        assert row["cross_a_b"] == pytest.approx((filled["a"] * filled["b"]).sum(), rel=1e-12,
+                                                 abs=1e-9)
+        for x, w in (("a", "a"), ("a", "b"), ("b", "b")):
+            assert row[f"sum_y_{x}_{w}"] == pytest.approx(
+                (filled[x][has_y] * filled[w][has_y]).sum(), rel=1e-12, abs=1e-9)
+        # by construction: each centre is a value of its stratum (first rows or all rows),
+        # so the centred sums stay small next to the level of 5e6
+        assert abs(row["centre_a"] - 5e6) < 100

@@ -178,3 +178,22 @@ def test_two_runs_over_a_parallel_scan_give_the_same_bits(tmp_path: Path) -> Non
     # by construction: a compensated sum does not depend on the order of partial sums (the
     # plain SUM differed in the last bits in about 3 of 4 groups between two runs)
     pd.testing.assert_frame_equal(first, second, check_exact=True)
+
+
+def test_the_demo_covariate_moments_equal_the_row_readers(no_row_reader) -> None:
+    spec = load_spec(REPO / "specs" / "demo.yaml")
+    got = group_data(spec)
+    want = from_rows(spec, load_data(spec))  # the module's own import, not the barred one
+    columns = [c for c in want.groups.columns
+               if "_x" in c and not c.startswith(("bad_", "centre_"))]
+    # by construction: 3 covariates: 3 sums each and 3 products of pairs; per outcome (2)
+    # 3 per covariate and 6 products
+    assert len(columns) == 3 * 3 + 3 + 2 * (3 * 3 + 6)
+    a = got.groups.set_index(["stratum", "offer", "take_up"]).sort_index()
+    b = want.groups.set_index(["stratum", "offer", "take_up"]).sort_index()
+    # by construction: both take each centre from the stratum's first rows in file order
+    np.testing.assert_array_equal(a["centre_x0"], b["centre_x0"])
+    for column in columns:
+        # reference: the same moments from the row reader's rows
+        np.testing.assert_allclose(a[column].to_numpy(float), b[column].to_numpy(float),
+                                   rtol=1e-9, atol=1e-6, err_msg=column)

@@ -52,15 +52,32 @@ def test_a_moment_table_run_equals_the_row_run_exactly(tmp_path: Path, invoke,
     ran = invoke("run", spec, "--out", table_out)
     assert ran.exit_code == 0, ran.stderr
     # reference: the run on the unit rows; estimates, intervals, diagnostics, strata,
-    # attrition and warnings are moment-only features and must agree bit for bit
+    # attrition, covariate balance and warnings are moment-only features and must agree
+    # bit for bit
     rows_doc, table_doc = _numbers(rows_out / "results.json"), _numbers(table_out / "results.json")
-    assert {k: v for k, v in table_doc.items() if k != "warnings"} == \
-        {k: v for k, v in rows_doc.items() if k != "warnings"}
+    assert table_doc == rows_doc
     doc = json.loads((table_out / "results.json").read_text(encoding="utf-8"))
     assert doc["spec"]["data_kind"] == "moments"
     assert [f["file"] for f in doc["inputs"]] == [table.name]
-    # by construction: the demo names covariates, which a moment table does not carry
-    assert any("are not in a moment table" in w for w in doc["warnings"])
+    # by construction: the demo names three covariates, carried by the table
+    assert [c["covariate"] for c in doc["covariates"]["covariates"]] == \
+        ["baseline_therms", "home_age_years", "household_size"]
+
+
+def test_a_table_without_covariate_columns_runs_without_the_checks(tmp_path: Path,
+                                                                   invoke) -> None:
+    table = tmp_path / "cells.csv"
+    assert invoke("cells", DEMO_SPEC, "--out", table).exit_code == 0
+    frame = pd.read_csv(table, dtype=str, keep_default_na=False)
+    frame.drop(columns=[c for c in frame.columns if "baseline" in c or "home_age" in c
+                        or "household_size" in c]).to_csv(table, index=False)
+    spec = _moment_spec(DEMO_SPEC, table, tmp_path / "m")
+    ran = invoke("run", spec, "--out", tmp_path / "out")
+    assert ran.exit_code == 0, ran.stderr
+    doc = json.loads((tmp_path / "out" / "results.json").read_text(encoding="utf-8"))
+    # by construction: the covariate columns were removed from the table
+    assert doc["covariates"] is None
+    assert any("are not in the moment table" in w for w in doc["warnings"])
 
 
 def test_clusters_and_gaps_survive_the_table(study: Study, invoke) -> None:

@@ -71,9 +71,12 @@ def test_demo_runs_and_prints_the_comparison(demo) -> None:
     assert "Strata that pull it most: Willow Creek" in flat
     assert "no one takes up because they were not offered" in flat
     assert "These numbers support, not replace, expert review" in flat
-    assert "covariates baseline_therms, home_age_years, household_size were checked" in " ".join(
-        result.stderr.split()
-    )
+    assert "covariates baseline_therms, home_age_years, household_size are used for the " \
+        "balance check" in " ".join(result.stderr.split())
+    # by construction: the demo names three covariates; each gets a row in the balance table
+    for name in ("baseline_therms", "home_age_years", "household_size"):
+        assert any(line.startswith(name + " ") for line in lines), name
+    assert "joint balance test: chi-squared" in flat
 
 
 def test_demo_results_validate_against_the_shipped_schema(demo) -> None:
@@ -413,7 +416,7 @@ def test_cluster_variance_passes_clusters_to_the_core(study: Study, invoke) -> N
     doc = study.results()
     assert_same_numbers([{k: v for k, v in e.items() if k != "outcome"}
                          for e in doc["estimates"]], expected)
-    assert any("covariates age were checked and recorded but not used" in w
+    assert any("covariates age are used for the balance check" in w
                for w in doc["warnings"])
 
 
