@@ -14,6 +14,7 @@ from strativ.estimators import Comparison
 from strativ.estimators.options import WEAK_FIRST_STAGE_F
 from strativ.estimators.profile import CovariateProfile
 
+from .covariate_data import ADJUSTED_VARIANCES
 from .grouped import GroupedData
 from .spec import Spec
 
@@ -89,10 +90,21 @@ def data_warnings(spec: Spec, dataset: GroupedData) -> list[str]:
     if cols.covariates and not dataset.roles.covariates:
         out.append("covariates " + ", ".join(cols.covariates) + " are not in the moment table "
                    "and were not used: no balance check, and every estimate is unadjusted")
-    elif cols.covariates:
+    elif cols.covariates and variance_used(spec) not in ADJUSTED_VARIANCES:
         out.append("covariates " + ", ".join(cols.covariates) + " are used for the balance "
-                   "check and the complier means, not for adjustment: the estimators do not "
-                   "adjust for covariates yet, so every estimate is unadjusted")
+                   f"check and the complier means but not for adjustment: variance "
+                   f"'{spec.variance}' with covariates needs fourth moments of the rows, "
+                   "which strativ does not compute yet; use variance 'stratified' for "
+                   "adjusted estimates")
+    if cols.covariates and dataset.roles.covariates:
+        g = dataset.groups
+        for name, role in zip(cols.covariates, dataset.roles.covariates, strict=True):
+            gaps = int((g["n"] - g[f"n_{role}"]).sum())
+            if gaps:
+                out.append(f"covariate '{name}' is missing in {gaps:,} of {dataset.n_rows:,} "
+                           "rows: balance and complier means leave those rows out; the "
+                           "adjusted estimates set them to a value of their stratum (which "
+                           "keeps every row and only costs precision)")
     form = cluster_form(spec)
     if form is not None and spec.variance != "cluster":
         out.append(f"cluster column '{cols.cluster}' is used: variance '{spec.variance}' "

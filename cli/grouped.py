@@ -22,7 +22,6 @@ import numpy as np
 import pandas as pd
 
 from strativ.estimators import OUTCOME_LIMIT, CellTable, cells_from_moments, group_query
-from strativ.estimators.profile import CovariateProfile, covariate_profile
 
 from .errors import DataError
 from .loading import (
@@ -146,36 +145,6 @@ class GroupedData:
             return sorted(out, key=lambda r: (r[0], r[1]))
         except TypeError:
             return out
-
-    def covariate_profile(self, probabilities: dict[Any, float] | None) -> CovariateProfile | None:
-        """Balance and complier means of the spec's covariates over every kept row (None
-        without covariates, or for a moment table, which carries none).
-
-        Raises
-        ------
-        strativ.estimators.EstimatorError
-            As `strativ.estimators.profile.covariate_profile`.
-        """
-        roles = self.roles.covariates
-        if not roles:
-            return None
-        g = self.groups
-        k = len(roles)
-
-        def columns(pattern: str) -> np.ndarray:
-            return np.column_stack([g[pattern.format(x)].to_numpy(dtype=float, na_value=0.0)
-                                    for x in roles])
-
-        cross = np.zeros((len(g), k, k))
-        for j, x in enumerate(roles):
-            cross[:, j, j] = g[f"sum_{x}_sq"].to_numpy(dtype=float, na_value=0.0)
-            for i, w in enumerate(roles[j + 1:], start=j + 1):
-                cross[:, j, i] = cross[:, i, j] = g[f"cross_{x}_{w}"].to_numpy(
-                    dtype=float, na_value=0.0)
-        return covariate_profile(
-            self.spec.columns.covariates, g["stratum"].tolist(), g["offer"].to_numpy(),
-            g["take_up"].to_numpy(), g["n"].to_numpy(), columns("n_{}"), columns("sum_{}"),
-            columns("sum_{}_sq"), columns("centre_{}"), cross, probability=probabilities)
 
     @property
     def labels(self) -> list[Any]:

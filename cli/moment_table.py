@@ -16,7 +16,9 @@ Columns (one row per group; rows with the same key are parts of one group and ar
 - per covariate ``x`` (when the spec names covariates): ``n_x``, ``sum_x``, ``sum_x_sq``,
   ``centre_x`` likewise over all rows of the group, and per pair ``x``, ``w`` (spec order)
   ``cross_x_w``, the sum of the products of the centred values, a missing value counting as
-  its centre. A table without them runs everything except the covariate checks.
+  its centre; per outcome ``y`` the same over the rows where ``y`` is present: ``n_y_x``,
+  ``sum_y_x``, ``sum_y_y_x`` (products with the centred outcome) and ``sum_y_x_w``. A table
+  without them runs everything except the covariate checks and adjustment.
 
 Rows dropped for a missing offer, take-up or stratum and the row files' fingerprints are not
 in the table: a run on it records the table's own fingerprint and its rows as kept rows.
@@ -49,13 +51,23 @@ COVARIATE_FIELDS = ("n_{}", "sum_{}", "sum_{}_sq", "centre_{}")
 """Per-covariate columns of the table (over all rows of the group)."""
 
 
-def _covariate_columns(names: tuple[str, ...], roles: tuple[str, ...]) -> list[tuple[str, str]]:
-    """(table column, grouped column) of every covariate moment: the per-covariate fields and
-    ``cross_x_w`` for each pair."""
+def _covariate_columns(names: tuple[str, ...], roles: tuple[str, ...],
+                       outcomes: tuple[str, ...] = (), outcome_roles: tuple[str, ...] = ()
+                       ) -> list[tuple[str, str]]:
+    """(table column, grouped column) of every covariate moment: the per-covariate fields,
+    ``cross_x_w`` for each pair, and per outcome ``y`` the sums over its rows: ``n_y_x``,
+    ``sum_y_x``, ``sum_y_y_x`` and ``sum_y_x_w``."""
     out = [(f.format(name), f.format(role)) for name, role in zip(names, roles, strict=True)
            for f in COVARIATE_FIELDS]
+    pairs = [(j, i) for j in range(len(names)) for i in range(j, len(names))]
     out += [(f"cross_{names[j]}_{names[i]}", f"cross_{roles[j]}_{roles[i]}")
-            for j in range(len(names)) for i in range(j + 1, len(names))]
+            for j, i in pairs if i > j]
+    for y, v in zip(outcomes, outcome_roles, strict=True):
+        for name, role in zip(names, roles, strict=True):
+            out += [(f"n_{y}_{name}", f"n_{v}_{role}"), (f"sum_{y}_{name}", f"sum_{v}_{role}"),
+                    (f"sum_{y}_{y}_{name}", f"sum_{v}_{v}_{role}")]
+        out += [(f"sum_{y}_{names[j]}_{names[i]}", f"sum_{v}_{roles[j]}_{roles[i]}")
+                for j, i in pairs]
     return out
 
 
@@ -105,7 +117,8 @@ def _table(data: GroupedData) -> pd.DataFrame:
             values = g[field.format(role)]
             out[field.format(name)] = values.to_numpy(dtype=np.int64) if field == "n_{}" \
                 else values.to_numpy(dtype=float, na_value=np.nan)
-    for name, column in _covariate_columns(cols.covariates, data.roles.covariates):
+    for name, column in _covariate_columns(cols.covariates, data.roles.covariates, cols.outcome,
+                                           data.roles.outcomes):
         out[name] = g[column].to_numpy(dtype=np.int64) if name.startswith("n_") \
             else g[column].to_numpy(dtype=float, na_value=np.nan)
     return out
@@ -200,7 +213,8 @@ def read_moment_table(spec: Spec) -> GroupedData:
     """
     cols = spec.columns
     roles = roles_of(spec)
-    covariates = _covariate_columns(cols.covariates, roles.covariates)
+    covariates = _covariate_columns(cols.covariates, roles.covariates, cols.outcome,
+                                    roles.outcomes)
     pieces, files = [], []
     carried = True
     for path in spec.data:

@@ -152,6 +152,17 @@ def _comparison_table(console: Console, result: OutcomeResult) -> None:
         [_col("weak-IV robust set", (format_set(e.confidence_set) for e in estimates)),
          _col(f"first-stage F\n{estimates[0].variance}", (format_f(e) for e in estimates))],
     ])
+    adjusted = result.adjusted
+    if adjusted:
+        console.print()
+        console.print("with covariates (" + ", ".join(adjusted[0].covariates) + "):")
+        fits = [a.fit for a in adjusted]
+        _print_table(console, _col("estimator", (ESTIMATOR_NAMES[a.estimator] for a in adjusted)),
+                     [[_col("estimate", (format_number(f.estimate) for f in fits)),
+                       _col("std. error", (format_number(f.std_error) for f in fits)),
+                       _col(f"{level:.0%} interval", (format_interval(f.interval) for f in fits)),
+                       _col("std. error\nratio", (format_number(a.std_error_ratio, digits=3)
+                                                   for a in adjusted))]])
     if any(e.weak_first_stage for e in estimates):
         console.print(_indented(f"weak: first-stage F below {WEAK_FIRST_STAGE_F:g}; the normal "
                                 "interval is not to be trusted, read the weak-IV robust set"))

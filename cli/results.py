@@ -233,6 +233,10 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
         "attrition": [{**a.to_dict(), **stratum_columns(run, a.stratum)}
                       for r in run.outcomes for a in r.attrition],
         "covariates": None if run.profile is None else run.profile.to_dict(),
+        "adjusted_estimates": [
+            {"outcome": r.outcome, **a.to_dict(), "fit": {"outcome": r.outcome,
+                                                          **a.fit.to_dict()}}
+            for r in run.outcomes for a in r.adjusted],
         "warnings": list(run.warnings),
     }
 

@@ -23,6 +23,7 @@ from strativ.estimators import (
     excluded_strata,
     fit_all,
 )
+from strativ.estimators.adjust import AdjustedEstimate, fit_adjusted
 from strativ.estimators.profile import CovariateProfile
 
 from .cautions import (
@@ -33,6 +34,7 @@ from .cautions import (
     variance_used,
 )
 from .core_errors import located_error
+from .covariate_data import ADJUSTED_VARIANCES, adjustment_moments, run_profile
 from .errors import DataError
 from .grouped import GroupedData, from_rows
 from .loading import Dataset
@@ -87,6 +89,9 @@ class OutcomeResult:
     """Rows dropped because this outcome is missing."""
     attrition: tuple[AttritionCell, ...]
     """Missing outcomes per stratum and arm (cells with at least one missing row)."""
+    adjusted: tuple[AdjustedEstimate, ...] = ()
+    """Each estimator refitted with the covariates (empty without covariates, or under a
+    robust variance flavour)."""
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -342,7 +347,33 @@ def _fit_outcome(spec: Spec, data: GroupedData, name: str,
                                  level=spec.level, offer_probability=mapping)
         except EstimatorError as exc:
             raise _located(exc, spec, data, name, probabilities=mapping) from None
-    return OutcomeResult(name, cells, comparison, missing, _attrition(name, data))
+        adjusted = _adjusted(spec, data, name, comparison, mapping)
+    return OutcomeResult(name, cells, comparison, missing, _attrition(name, data), adjusted)
+
+
+def _adjusted(spec: Spec, data: GroupedData, name: str, comparison: Any,
+              mapping: dict[Any, float] | None) -> tuple[AdjustedEstimate, ...]:
+    """Every estimator of `comparison` refitted with the spec's covariates, on the same
+    strata; () without covariates or under a robust flavour (`cautions` says why)."""
+    variance = variance_used(spec)
+    if variance not in ADJUSTED_VARIANCES:
+        return ()
+    moments = adjustment_moments(data, name, [r.label for r in comparison.strata.rows])
+    if moments is None:
+        return ()
+    out = []
+    for estimate in comparison.estimates:
+        try:
+            out.append(fit_adjusted(
+                moments, estimate.estimator, tuple(spec.columns.covariates), variance=variance,
+                assignment=spec.assignment, sampling=spec.sampling, level=spec.level,
+                offer_probability=mapping, unadjusted_std_error=estimate.std_error))
+        except EstimatorError as exc:
+            raise DataError(None, ", ".join(spec.columns.covariates), (),
+                            f"outcome '{name}': {getattr(exc, 'message', exc)}",
+                            "the covariates are named under 'columns: covariates:' in "
+                            f"{spec.path.name}") from None
+    return tuple(out)
 
 
 def check_with_core(spec: Spec, data: GroupedData,
@@ -406,7 +437,7 @@ def run_spec(spec: Spec, data: GroupedData | Dataset) -> Run:
         data = from_rows(spec, data)
     probabilities = design_probabilities(spec, data)
     results = [_fit_outcome(spec, data, name, probabilities) for name in data.outcomes]
-    profile = data.covariate_profile(probabilities)
+    profile = run_profile(data, probabilities)
     return Run(spec, data, probabilities, tuple(results),
                tuple(data_warnings(spec, data) + fit_warnings(results)
                      + balance_warnings(profile)), profile)

@@ -24,6 +24,7 @@ group of (stratum, offer, take-up).
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -31,8 +32,11 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
+from .moments import cells_from_moments
+from .results import Estimate
 
-__all__ = ["AdjustmentMoments", "adjusted_moments", "adjustment_slopes"]
+__all__ = ["AdjustedEstimate", "AdjustmentMoments", "adjusted_moments", "adjustment_slopes",
+           "constant_covariates", "fit_adjusted"]
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -65,6 +69,8 @@ class AdjustmentMoments:
     """Σ (x_j − c_j)(x_l − c_l) per group (G, k, k)."""
     centre_x: np.ndarray
     """The covariates' stratum centres, per group (G, k)."""
+    cluster: np.ndarray | None = None
+    """Cluster label per group (G,), when groups are split by cluster."""
 
 
 def _blocks(m: AdjustmentMoments, weights: np.ndarray) -> tuple[np.ndarray, ...]:
@@ -102,11 +108,21 @@ def _within(W: np.ndarray, T: np.ndarray, Q: np.ndarray) -> np.ndarray:
     return Q - T[:, :, None] * T[:, None, :] / W[:, None, None]
 
 
+def constant_covariates(m: AdjustmentMoments, covariates: tuple[str, ...]) -> list[str]:
+    """Covariates whose within-stratum spread is zero (to rounding) in every stratum."""
+    W, T, Q, _, _ = _blocks(m, np.ones(len(m.n)))
+    within = np.diagonal(_within(W, T, Q), axis1=1, axis2=2)[:, 3:].sum(axis=0)
+    scale = np.diagonal(Q, axis1=1, axis2=2)[:, 3:].sum(axis=0)
+    return [name for name, w, q in zip(covariates, within, scale, strict=True)
+            if w <= 1e-12 * max(q, 1.0)]
+
+
 def _solve(a: np.ndarray, b: np.ndarray, what: str) -> np.ndarray:
     if a.size == 0:
         return np.zeros(0)
     if np.linalg.cond(a) > 1e12:
-        raise InputError("covariates", f"the covariates are collinear ({what}); drop one.")
+        raise InputError("covariates", f"the covariates are collinear within strata in the "
+                         f"{what} regression; drop one of them.")
     return np.linalg.solve(a, b)
 
 
@@ -203,8 +219,94 @@ def adjusted_moments(m: AdjustmentMoments, gamma: np.ndarray) -> pd.DataFrame:
     gamma = np.asarray(gamma, dtype=float)
     total = m.sum_y - m.sum_x @ gamma
     square = m.sum_yy - 2 * m.sum_xy @ gamma + np.einsum("gjl,j,l->g", m.sum_xx, gamma, gamma)
-    return pd.DataFrame({
+    frame = pd.DataFrame({
         "stratum": list(m.stratum), "offer": m.offer, "take_up": m.take_up, "n": m.n,
         "sum_outcome": total, "sum_outcome_sq": np.maximum(square, 0.0),
         "centre_outcome": m.centre_y - m.centre_x @ gamma,
     })
+    if m.cluster is not None:
+        frame["cluster"] = list(m.cluster)
+    return frame
+
+
+@dataclass(frozen=True, slots=True)
+class AdjustedEstimate:
+    """One estimator fitted with covariates: its slopes and the fit on ``y − x'γ``."""
+
+    estimator: str
+    """``fixed_effects``, ``weighted`` or ``interacted``."""
+    covariates: tuple[str, ...]
+    """Covariate names, in the order of `slopes`."""
+    slopes: tuple[float, ...]
+    """γ of the estimator's regression."""
+    fit: Estimate
+    """The estimate, interval and diagnostics of the adjusted outcome (first-stage figures
+    are those of the regression without covariates)."""
+    std_error_ratio: float | None
+    """Adjusted over unadjusted standard error (below 1: the covariates bought precision)."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the JSON form."""
+        return {"estimator": self.estimator, "covariates": list(self.covariates),
+                "slopes": dict(zip(self.covariates, self.slopes, strict=True)),
+                "std_error_ratio": self.std_error_ratio, "fit": self.fit.to_dict()}
+
+
+def fit_adjusted(
+    m: AdjustmentMoments,
+    estimator: str,
+    covariates: tuple[str, ...],
+    *,
+    variance: str = "stratified",
+    assignment: str = "block",
+    sampling: str = "random",
+    level: float = 0.95,
+    offer_probability: Mapping[Any, float] | None = None,
+    unadjusted_std_error: float | None = None,
+) -> AdjustedEstimate:
+    """Fit one estimator with covariates from group moments.
+
+    Parameters
+    ----------
+    m : AdjustmentMoments
+        Group moments of the analysed strata.
+    estimator : str
+        As in `fit`.
+    covariates : tuple of str
+        Names of the k covariates of `m`.
+    variance : {"stratified", "cluster"}, default="stratified"
+        The design-based flavours, applied to the adjusted residual. The robust sandwich of a
+        regression with covariates needs fourth moments and is not offered here.
+    assignment, sampling, level, offer_probability
+        As in `fit`; design probabilities also set the weighted estimator's weights.
+    unadjusted_std_error : float, optional
+        The same estimator's standard error without covariates, for the ratio.
+
+    Returns
+    -------
+    AdjustedEstimate
+
+    Raises
+    ------
+    InputError
+        For a robust flavour, collinear covariates, or as `fit`.
+    """
+    from .fitting import fit
+
+    if variance not in ("stratified", "cluster"):
+        raise InputError("variance", f"covariate adjustment gives design-based variances "
+                         f"(stratified, cluster), not {variance!r}.")
+    flat = constant_covariates(m, covariates)
+    if flat:
+        raise InputError("covariates", f"covariate {flat[0]!r} does not vary within any "
+                         "stratum (constant, or missing everywhere), so it cannot adjust; "
+                         "remove it from the covariates.")
+    gamma = adjustment_slopes(estimator, m, offer_probability)
+    cells = cells_from_moments(adjusted_moments(m, gamma))
+    result = fit(cells, estimator=estimator, variance=variance, assignment=assignment,
+                 sampling=sampling, level=level, offer_probability=offer_probability)
+    ratio = None
+    if result.std_error is not None and unadjusted_std_error:
+        ratio = float(result.std_error / unadjusted_std_error)
+    return AdjustedEstimate(estimator, tuple(covariates), tuple(float(g) for g in gamma),
+                            result, ratio)

@@ -1,0 +1,132 @@
+"""Covariates in a run: every estimator refitted with them next to the unadjusted fit, the
+balance table and complier means, and what happens with robust variances, gaps and
+degenerate covariates.
+
+References: the core's `fit_adjusted` on group moments written by the test from the demo's
+rows (the core itself is checked against linearmodels in tests/test_adjust.py) and
+`covariate_profile` likewise; counts by construction.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from cli_support import MINIMAL_SPEC, REPO, Study, assert_clean_failure, study_rows, write_csv
+from test_adjust import moments_of
+
+from strativ.estimators.adjust import fit_adjusted
+
+DATA_ERROR = 3
+DEMO_COVARIATES = ["baseline_therms", "home_age_years", "household_size"]
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    from typer.testing import CliRunner
+
+    from strativ.cli.app import app
+
+    out = tmp_path_factory.mktemp("demo")
+    done = CliRunner().invoke(app, ["run", str(REPO / "specs" / "demo.yaml"), "--out", str(out),
+                                    "--format", "json"])
+    assert done.exit_code == 0, done.stderr
+    import json
+
+    return json.loads((out / "results.json").read_text(encoding="utf-8")), done
+
+
+def test_the_demo_shows_adjusted_estimates_equal_to_the_core(demo) -> None:
+    doc, _ = demo
+    rows = pd.concat([pd.read_csv(p) for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
+    for outcome in ("gas_therms", "behind_on_bills"):
+        frame = pd.DataFrame({"s": rows["district"], "z": rows["won_lottery"],
+                              "d": rows["retrofitted"], "y": rows[outcome],
+                              **{x: rows[x].astype(float) for x in DEMO_COVARIATES}})
+        m = moments_of(frame.reset_index(drop=True), DEMO_COVARIATES)
+        got = [a for a in doc["adjusted_estimates"] if a["outcome"] == outcome]
+        plain = {e["estimator"]: e for e in doc["estimates"] if e["outcome"] == outcome}
+        # by construction: the demo fits three estimators on two outcomes
+        assert [a["estimator"] for a in got] == ["fixed_effects", "weighted", "interacted"]
+        for entry in got:
+            want = fit_adjusted(m, entry["estimator"], tuple(DEMO_COVARIATES),
+                                unadjusted_std_error=plain[entry["estimator"]]["std_error"])
+            # reference: strativ.estimators.adjust.fit_adjusted on moments from the rows
+            assert entry["fit"]["estimate"] == pytest.approx(want.fit.estimate, rel=1e-10)
+            assert entry["fit"]["std_error"] == pytest.approx(want.fit.std_error, rel=1e-8)
+            assert entry["std_error_ratio"] == pytest.approx(want.std_error_ratio, rel=1e-8)
+            assert list(entry["slopes"]) == DEMO_COVARIATES
+
+
+def test_the_demo_prints_balance_and_adjusted_estimates_at_80_columns(demo) -> None:
+    _, done = demo
+    lines = done.stdout.splitlines()
+    # common practice, no source: a terminal report fits 80 columns
+    assert max(len(line.rstrip()) for line in lines) <= 80
+    assert any(line.startswith("with covariates (baseline_therms") for line in lines)
+    assert any("joint balance test" in line for line in lines)
+
+
+def _study(study: Study, rows, extra: str = "") -> None:
+    write_csv(study.data, rows, header=tuple(rows[0]))
+    study.write_spec(MINIMAL_SPEC + "  covariates: age\n" + extra)
+
+
+def test_robust_variance_reports_no_adjustment_and_says_why(study: Study, invoke) -> None:
+    _study(study, study_rows(), "inference:\n  variance: robust\n")
+    done = invoke("run", study.spec, "--out", study.out)
+    assert done.exit_code == 0, done.stderr
+    doc = study.results()
+    # by construction: robust sandwiches with covariates are not offered
+    assert doc["adjusted_estimates"] == []
+    assert any("not for adjustment" in w and "'robust'" in w for w in doc["warnings"])
+    assert doc["covariates"]["covariates"][0]["covariate"] == "age"
+
+
+def test_a_covariate_with_gaps_is_counted_and_still_adjusts(study: Study, invoke) -> None:
+    rows = study_rows()
+    for i in (3, 17, 40):
+        rows[i]["age"] = ""
+    _study(study, rows)
+    done = invoke("run", study.spec, "--out", study.out)
+    assert done.exit_code == 0, done.stderr
+    doc = study.results()
+    # by construction: three ages blanked above
+    assert any("covariate 'age' is missing in 3 of" in w for w in doc["warnings"])
+    assert len(doc["adjusted_estimates"]) == 3
+    assert doc["covariates"]["covariates"][0]["n_present"] == len(rows) - 3
+
+
+def test_a_constant_covariate_is_refused_by_name(study: Study, invoke) -> None:
+    rows = study_rows()
+    for row in rows:
+        row["age"] = 40
+    _study(study, rows)
+    done = invoke("run", study.spec, "--out", study.out)
+    assert_clean_failure(done, DATA_ERROR, "covariate 'age' does not vary within any stratum",
+                         "columns: covariates:")
+
+
+def test_collinear_covariates_are_refused(study: Study, invoke) -> None:
+    rows = study_rows()
+    for row in rows:
+        row["age2"] = 2 * row["age"] + 1
+    write_csv(study.data, rows, header=tuple(rows[0]))
+    study.write_spec(MINIMAL_SPEC + "  covariates: [age, age2]\n")
+    done = invoke("run", study.spec, "--out", study.out)
+    assert_clean_failure(done, DATA_ERROR, "collinear within strata")
+
+
+def test_a_covariate_that_predicts_the_outcome_narrows_the_interval(study: Study,
+                                                                    invoke) -> None:
+    rows = study_rows()
+    rng = np.random.default_rng(20261205)
+    for row in rows:
+        row["score"] = round(float(rng.normal()), 6)
+        row["y"] = round(row["y"] + 3 * row["score"], 6)
+    write_csv(study.data, rows, header=tuple(rows[0]))
+    study.write_spec(MINIMAL_SPEC + "  covariates: score\n")
+    assert invoke("run", study.spec, "--out", study.out).exit_code == 0
+    ratios = [a["std_error_ratio"] for a in study.results()["adjusted_estimates"]]
+    # by construction: the score carries most of the outcome's spread
+    assert all(r < 0.6 for r in ratios), ratios
