@@ -272,6 +272,29 @@ def _covariates(console: Console, profile: CovariateProfile) -> None:
                                 "probabilities"))
 
 
+def _p_text(value: float | None) -> str:
+    if value is None:
+        return "\u2013"
+    return "< 0.0001" if value < 1e-4 else format_number(value, digits=3)
+
+
+def _families(console: Console, run: Run) -> None:
+    console.print()
+    console.rule(Text("several outcomes", "bold"), align="left")
+    console.print("p-values of a zero effect, and adjusted across the "
+                  f"{len(run.families[0].outcomes)} outcomes: Holm (family-wise error) and "
+                  "Benjamini-Hochberg (false discovery rate):")
+    blocks = []
+    for family in run.families:
+        name = ESTIMATOR_NAMES[family.estimator] + (",\nwith covariates" if family.with_covariates
+                                                    else "\n")
+        values = family.p_values
+        blocks.append([_col(f"{name}\np", map(_p_text, values.p_value)),
+                       _col("\n\nHolm", map(_p_text, values.holm)),
+                       _col("\n\nBH", map(_p_text, values.benjamini_hochberg))])
+    _print_table(console, _col("outcome", run.families[0].outcomes), blocks)
+
+
 def render_run(console: Console, run: Run) -> None:
     """Print the report of a run: header, then per outcome the comparison, the per-stratum
     table, exclusions and the reading; then the assumptions and the caution.
@@ -288,6 +311,8 @@ def render_run(console: Console, run: Run) -> None:
         _outcome(console, result)
     if run.profile is not None:
         _covariates(console, run.profile)
+    if run.families:
+        _families(console, run)
     console.print()
     console.print(_t(ASSUMPTIONS))
     console.print(_t(REVIEW))

@@ -237,6 +237,7 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
             {"outcome": r.outcome, **a.to_dict(), "fit": {"outcome": r.outcome,
                                                           **a.fit.to_dict()}}
             for r in run.outcomes for a in r.adjusted],
+        "multiple_outcomes": [f.to_dict() for f in run.families],
         "warnings": list(run.warnings),
     }
 

@@ -38,6 +38,7 @@ from .covariate_data import ADJUSTED_VARIANCES, adjustment_moments, run_profile
 from .errors import DataError
 from .grouped import GroupedData, from_rows
 from .loading import Dataset
+from .multiplicity import OutcomeFamily, outcome_families
 from .spec import Spec, suggest
 
 __all__ = [
@@ -110,6 +111,9 @@ class Run:
     """Plain-language warnings for the reader."""
     profile: CovariateProfile | None = None
     """Balance and complier means of the covariates (None without covariates)."""
+    families: tuple[OutcomeFamily, ...] = ()
+    """p-values across outcomes, per estimator, with Holm and Benjamini-Hochberg (two or
+    more outcomes)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -440,4 +444,4 @@ def run_spec(spec: Spec, data: GroupedData | Dataset) -> Run:
     profile = run_profile(data, probabilities)
     return Run(spec, data, probabilities, tuple(results),
                tuple(data_warnings(spec, data) + fit_warnings(results)
-                     + balance_warnings(profile)), profile)
+                     + balance_warnings(profile)), profile, outcome_families(results))

@@ -8,7 +8,7 @@ from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
-from scipy.special import stdtrit
+from scipy.special import ndtr, stdtr, stdtrit
 
 from .cells import CellTable
 from .design import Design, analysis_design
@@ -186,7 +186,7 @@ def _estimate(
     finite = math.isfinite(a + b + c) and problem is None
     conf = fieller_set(n, d, a, b, c, z) if finite else ConfidenceSet(shape="whole_line")
     f_null = d * d / c if finite and c > 0 else None
-    estimate = std_error = interval = None
+    estimate = std_error = interval = p_value = None
     reason = None
     if d == 0:
         reason = "the overall first stage is zero: offer did not change take-up"
@@ -198,6 +198,8 @@ def _estimate(
         if problem is None:
             std_error = math.sqrt(var)
             interval = normal_interval(estimate, std_error, z)
+            t = abs(estimate) / std_error
+            p_value = float(2.0 * (stdtr(df, -t) if df is not None else ndtr(-t)))
     # an F of None with a non-zero first stage means a first stage measured without noise
     weak = d == 0 if strength.f is None else strength.f < WEAK_FIRST_STAGE_F
     return Estimate(
@@ -207,6 +209,7 @@ def _estimate(
         std_error=std_error,
         interval=interval,
         degrees_of_freedom=df if interval is not None else None,
+        p_value=p_value,
         confidence_set=conf,
         first_stage_f=strength.f,
         first_stage_f_unadjusted=strength.f_unadjusted,

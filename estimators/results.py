@@ -92,6 +92,9 @@ class Estimate:
     degrees_of_freedom: float | None
     """Welch-Satterthwaite degrees of freedom of the t reference of `interval` and
     `confidence_set` (K - 1 under the pairs rule); None for the normal reference."""
+    p_value: float | None
+    """Two-sided p-value of a zero effect, from the interval's reference (Student t on
+    `degrees_of_freedom`, or normal); None without a standard error."""
     confidence_set: ConfidenceSet
     """Fieller / Anderson-Rubin set at `level`; honest under a weak first stage."""
     first_stage_f: float | None
