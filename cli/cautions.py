@@ -193,6 +193,14 @@ def fit_warnings(outcomes: Sequence[OutcomeResult]) -> list[str]:
             out.append(f"outcome '{name}' is missing in {result.missing} rows "
                        f"({offered} offered, {result.missing - offered} not offered); they are "
                        "left out for this outcome (attrition by stratum and arm in results.json)")
+        test = result.attrition_test
+        if test is not None and test.p_value is not None and test.p_value < ATTRITION_LEVEL:
+            more = "offered" if (test.difference or 0.0) > 0 else "not offered"
+            out.append(f"outcome '{name}' goes missing more often among the {more} "
+                       f"(within strata {100 * (test.difference or 0.0):+.1f} points; "
+                       f"Mantel-Haenszel p = {test.p_value:.3g}): attrition that differs by "
+                       "arm can bias every estimate of this outcome; bound or model it "
+                       "before relying on them")
         estimates = result.comparison.estimates
         undefined: dict[str, list[str]] = {}
         no_error: dict[str, list[str]] = {}
@@ -225,6 +233,8 @@ def fit_warnings(outcomes: Sequence[OutcomeResult]) -> list[str]:
     return out
 
 
+ATTRITION_LEVEL = 0.05
+"""The differential-attrition test's p-value below which a warning is given."""
 BALANCE_LEVEL = 0.05
 """The joint balance test's p-value below which a warning is given."""
 

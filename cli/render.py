@@ -212,6 +212,13 @@ def _outcome(console: Console, result: OutcomeResult) -> None:
     console.print(f"{first.n_units:,} rows, {first.n_strata} strata used, {n_excluded} excluded"
                   + (f"; {result.missing:,} rows without this outcome left out"
                      if result.missing else ""))
+    test = result.attrition_test
+    if result.missing and test is not None and test.offered and test.not_offered:
+        p = "no test" if test.p_value is None else \
+            f"Mantel-Haenszel p = {format_number(test.p_value, digits=3)}"
+        console.print(f"missing: {_share(test.missing_offered / test.offered)} of offered, "
+                      f"{_share(test.missing_not_offered / test.not_offered)} of not offered "
+                      f"rows (within strata {100 * (test.difference or 0.0):+.1f} points; {p})")
     _comparison_table(console, result)
     console.print("what each targets:")
     for est in comp.estimates:

@@ -194,6 +194,8 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
             "outcome": result.outcome,
             "rows_used": result.cells.n_units,
             "rows_missing_outcome": result.missing,
+            "attrition_test": None if result.attrition_test is None
+            else result.attrition_test.to_dict(),
             "gap": comp["gap"],
             "size_weighted": comp["size_weighted"],
             "single_unit_cells": comp["strata"]["single_unit_cells"],

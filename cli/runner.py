@@ -24,6 +24,7 @@ from strativ.estimators import (
     fit_all,
 )
 from strativ.estimators.adjust import AdjustedEstimate, fit_adjusted
+from strativ.estimators.attrition import AttritionTest, attrition_test
 from strativ.estimators.profile import CovariateProfile
 
 from .cautions import (
@@ -93,6 +94,8 @@ class OutcomeResult:
     adjusted: tuple[AdjustedEstimate, ...] = ()
     """Each estimator refitted with the covariates (empty without covariates, or under a
     robust variance flavour)."""
+    attrition_test: AttritionTest | None = None
+    """Missing outcomes by offer arm, with the Mantel-Haenszel test within strata."""
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -352,7 +355,12 @@ def _fit_outcome(spec: Spec, data: GroupedData, name: str,
         except EstimatorError as exc:
             raise _located(exc, spec, data, name, probabilities=mapping) from None
         adjusted = _adjusted(spec, data, name, comparison, mapping)
-    return OutcomeResult(name, cells, comparison, missing, _attrition(name, data), adjusted)
+    g = data.groups
+    role = data.roles.outcomes[data.outcomes.index(name)]
+    test = attrition_test(g["stratum"].tolist(), g["offer"].to_numpy(), g["n"].to_numpy(),
+                          g[f"n_{role}"].to_numpy())
+    return OutcomeResult(name, cells, comparison, missing, _attrition(name, data), adjusted,
+                         test)
 
 
 def _adjusted(spec: Spec, data: GroupedData, name: str, comparison: Any,

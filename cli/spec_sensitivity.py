@@ -1,0 +1,58 @@
+"""The spec's `sensitivity` section: the range of direct effects of the offer to report.
+
+    sensitivity:
+      direct_effect: [-5, 5]     # in the outcome's units, per offered unit
+
+Without it the run still reports the direct effect at which the complier-weighted interval
+reaches zero (`strativ.estimators.sensitivity`).
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+from typing import Any
+
+from .errors import SpecError
+from .yamlmarks import KeyPath, dotted, line_of
+
+__all__ = ["SENSITIVITY_KEYS", "direct_effect_range"]
+
+SENSITIVITY_KEYS = ("direct_effect",)
+
+
+def _error(path: Path, lines: dict[KeyPath, int], keys: KeyPath, message: str,
+           hint: str | None = None) -> SpecError:
+    return SpecError(path, line_of(lines, keys), dotted(keys), message, hint)
+
+
+def direct_effect_range(path: Path, lines: dict[KeyPath, int],
+                        value: Any) -> tuple[float, float] | None:
+    """Validate `sensitivity` and return its direct-effect range (low, high), or None.
+
+    Raises
+    ------
+    SpecError
+        Naming the line of an unknown key, or of a range that is not two numbers in order.
+    """
+    if value is None:
+        return None
+    if not isinstance(value, dict):
+        raise _error(path, lines, ("sensitivity",), "'sensitivity' must be a mapping of keys",
+                     "for example  sensitivity: {direct_effect: [-5, 5]}")
+    for key in value:
+        if key not in SENSITIVITY_KEYS:
+            raise _error(path, lines, ("sensitivity", key), f"unknown key {key!r} under "
+                         "'sensitivity'", "valid keys: " + ", ".join(SENSITIVITY_KEYS))
+    pair = value.get("direct_effect")
+    if pair is None:
+        return None
+    keys: KeyPath = ("sensitivity", "direct_effect")
+    numbers = isinstance(pair, list) and len(pair) == 2 and all(
+        isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+        for v in pair)
+    if not numbers or pair[0] > pair[1]:
+        raise _error(path, lines, keys, f"'{dotted(keys)}' must be two numbers, low then "
+                     f"high, found {pair!r}", "for example  direct_effect: [-5, 5]  (outcome "
+                     "units per offered unit)")
+    return float(pair[0]), float(pair[1])
