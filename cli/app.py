@@ -150,6 +150,7 @@ def run(
     Example:  strativ run specs/demo.yaml --out results/ --format json
     """
     with _boundary() as err:
+        from .console import draw_progress
         from .grouped import group_data
         from .render import render_run, render_warnings
         from .results import check_output_paths, write_outputs
@@ -160,7 +161,8 @@ def run(
         out_dir = loaded.output_dir if out is None else out.expanduser().resolve()
         chosen = tuple(dict.fromkeys(f.value for f in formats)) if formats else loaded.formats
         check_output_paths(loaded, out_dir, chosen)
-        result = run_spec(loaded, group_data(loaded))
+        with draw_progress(err, enabled=not quiet and loaded.randomization is not None) as bar:
+            result = run_spec(loaded, group_data(loaded), progress=bar)
         if not quiet:
             render_run(make_console(), result)
         written = write_outputs(result, out_dir, chosen)

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import io
 import os
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 
 from rich.console import Console
 from rich.text import Text
@@ -69,3 +71,26 @@ def render_error(console: Console, error: CliError) -> None:
         The error to report.
     """
     console.print(Text.assemble(Text("error: ", style="bold red"), Text(error.render())))
+
+
+@contextmanager
+def draw_progress(console: Console, *,
+                  enabled: bool) -> Iterator[Callable[[int, int], None] | None]:
+    """A transient progress bar for the re-drawn offers of randomization inference.
+
+    Yields a callback ``(done, total)`` when `enabled` and `console` is a terminal, else None
+    (nothing is drawn into a log or a pipe); the bar disappears when the block ends.
+    """
+    if not enabled or not console.is_terminal:
+        yield None
+        return
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
+
+    with Progress(TextColumn("re-drawing offers"), BarColumn(), MofNCompleteColumn(),
+                  console=console, transient=True) as bar:
+        task = bar.add_task("draws", total=None)
+
+        def update(done: int, total: int) -> None:
+            bar.update(task, completed=done, total=total)
+
+        yield update

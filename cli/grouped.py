@@ -108,6 +108,10 @@ class GroupedData:
         strativ.estimators.EstimatorError
             As `cells_from_moments` (a cluster spanning cells, no rows).
         """
+        return cells_from_moments(self.moment_frame(outcome))
+
+    def moment_frame(self, outcome: str | None) -> pd.DataFrame:
+        """The groups of `outcome` in the layout `cells_from_moments` reads."""
         g = self.groups
         frame = pd.DataFrame({"stratum": g["stratum"], "offer": g["offer"],
                               "take_up": g["take_up"]})
@@ -122,7 +126,7 @@ class GroupedData:
             frame["centre_outcome"] = g[f"centre_{role}"]
         if "cluster" in g.columns:
             frame["cluster"] = g["cluster"]
-        return cells_from_moments(frame[frame["n"] > 0].reset_index(drop=True))
+        return frame[frame["n"] > 0].reset_index(drop=True)
 
     def largest(self, outcome: str) -> float:
         """Largest absolute value of `outcome`."""

@@ -192,6 +192,38 @@ def _strata_table(console: Console, result: OutcomeResult) -> str | None:
     return caption
 
 
+def _sensitivity(console: Console, result: OutcomeResult) -> None:
+    sens = result.sensitivity
+    if sens is None:
+        return
+    name = ESTIMATOR_NAMES[sens.estimator]
+    if sens.delta_to_zero is not None and sens.delta_to_zero != 0.0:
+        console.print(_indented(
+            f"Sensitivity: if the offer moved {result.outcome} by itself (not through take-up) "
+            f"by {format_number(sens.delta_to_zero)} per offered unit, the {name} interval "
+            "would reach zero."))
+    if sens.union is not None:
+        low, high = sens.rows[0].delta, sens.rows[-1].delta
+        console.print(_indented(
+            f"With such a direct effect anywhere from {format_number(low)} to "
+            f"{format_number(high)}, the {name} intervals together span "
+            f"{format_interval(sens.union)}."))
+
+
+def _randomization(console: Console, result: OutcomeResult) -> None:
+    test = result.randomization
+    if test is None:
+        return
+    how = f"all {test.draws:,} assignments" if test.exact else \
+        f"{test.draws:,} re-drawn offer assignments (seed {test.seed})"
+    span = format_interval(test.interval) if test.interval is not None else \
+        f"none ({test.interval_reason})"
+    console.print(_indented(
+        f"Randomization inference over {how}: p = {format_number(test.p_value, digits=3)} "
+        f"for no effect of take-up on any unit; {test.level:.0%} randomization interval "
+        f"{span}."))
+
+
 def _excluded(console: Console, result: OutcomeResult) -> None:
     excluded = result.comparison.strata.excluded
     if not excluded:
@@ -240,6 +272,8 @@ def _outcome(console: Console, result: OutcomeResult) -> None:
     console.print("reading:")
     for sentence in reading(comp):
         console.print(_indented(_t(sentence)))
+    _sensitivity(console, result)
+    _randomization(console, result)
     notes = list(comp.notes) + [f"{ESTIMATOR_NAMES[e.estimator]}: {n}"
                                 for e in comp.estimates for n in e.notes]
     for note in notes:

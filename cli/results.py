@@ -196,6 +196,9 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
             "rows_missing_outcome": result.missing,
             "attrition_test": None if result.attrition_test is None
             else result.attrition_test.to_dict(),
+            "sensitivity": None if result.sensitivity is None else result.sensitivity.to_dict(),
+            "randomization": None if result.randomization is None
+            else result.randomization.to_dict(),
             "gap": comp["gap"],
             "size_weighted": comp["size_weighted"],
             "single_unit_cells": comp["strata"]["single_unit_cells"],

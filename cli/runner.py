@@ -18,14 +18,27 @@ import numpy as np
 from strativ.estimators import (
     CellTable,
     Comparison,
+    Estimate,
     EstimatorError,
     build_cells,
+    cells_from_moments,
     excluded_strata,
+    fit,
     fit_all,
 )
 from strativ.estimators.adjust import AdjustedEstimate, fit_adjusted
 from strativ.estimators.attrition import AttritionTest, attrition_test
 from strativ.estimators.profile import CovariateProfile
+from strativ.estimators.randomization import (
+    RandomizationTest,
+    randomization_draws,
+    randomization_test,
+)
+from strativ.estimators.sensitivity import (
+    DirectEffectSensitivity,
+    direct_effect_sensitivity,
+    shift_by_offer,
+)
 
 from .cautions import (
     balance_warnings,
@@ -41,6 +54,7 @@ from .grouped import GroupedData, from_rows
 from .loading import Dataset
 from .multiplicity import OutcomeFamily, outcome_families
 from .spec import Spec, suggest
+from .unit_rows import outcome_rows
 
 __all__ = [
     "AttritionCell",
@@ -96,6 +110,10 @@ class OutcomeResult:
     robust variance flavour)."""
     attrition_test: AttritionTest | None = None
     """Missing outcomes by offer arm, with the Mantel-Haenszel test within strata."""
+    sensitivity: DirectEffectSensitivity | None = None
+    """The reported complier estimator under a direct effect of the offer."""
+    randomization: RandomizationTest | None = None
+    """Randomization p-value of no effect and interval (`inference.randomization`)."""
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -337,7 +355,7 @@ def _attrition(outcome: str, data: GroupedData) -> tuple[AttritionCell, ...]:
 
 
 def _fit_outcome(spec: Spec, data: GroupedData, name: str,
-                 probabilities: dict[Any, float] | None) -> OutcomeResult:
+                 probabilities: dict[Any, float] | None, progress: Any = None) -> OutcomeResult:
     """`fit_all` on the rows that have outcome `name`; the core's refusals become errors
     located in the spec or the data."""
     missing = data.missing(name)
@@ -360,7 +378,41 @@ def _fit_outcome(spec: Spec, data: GroupedData, name: str,
     test = attrition_test(g["stratum"].tolist(), g["offer"].to_numpy(), g["n"].to_numpy(),
                           g[f"n_{role}"].to_numpy())
     return OutcomeResult(name, cells, comparison, missing, _attrition(name, data), adjusted,
-                         test)
+                         test, _sensitivity(spec, data, name, comparison, mapping),
+                         _randomization(spec, data, name, progress))
+
+
+def _randomization(spec: Spec, data: GroupedData, name: str,
+                   progress: Any = None) -> RandomizationTest | None:
+    """Randomization inference on the rows of outcome `name` (None when not asked for)."""
+    if spec.randomization is None:
+        return None
+    draws, seed = spec.randomization
+    rows = outcome_rows(data, name)
+    try:
+        found = randomization_draws(rows.outcome, rows.take_up, rows.offer, rows.stratum,
+                                    cluster=rows.cluster, draws=draws, seed=seed,
+                                    progress=progress)
+    except EstimatorError as exc:
+        raise DataError(None, name, (), f"randomization inference: "
+                        f"{getattr(exc, 'message', exc)}") from None
+    return randomization_test(found, level=spec.level)
+
+
+def _sensitivity(spec: Spec, data: GroupedData, name: str, comparison: Comparison,
+                 mapping: dict[Any, float] | None) -> DirectEffectSensitivity | None:
+    """The reported complier estimator refitted on ``y − δ Z`` (METHODS.md §7)."""
+    fitted = [e.estimator for e in comparison.estimates]
+    estimator = comparison.gap.complier_estimator if comparison.gap is not None else \
+        next((e for e in ("weighted", "interacted") if e in fitted), fitted[0])
+    frame = data.moment_frame(name)
+
+    def fit_at(delta: float) -> Estimate:
+        return fit(cells_from_moments(shift_by_offer(frame, delta)), estimator=estimator,
+                   variance=variance_used(spec), assignment=spec.assignment,
+                   sampling=spec.sampling, level=spec.level, offer_probability=mapping)
+
+    return direct_effect_sensitivity(fit_at, estimator, spec.direct_effect)
 
 
 def _adjusted(spec: Spec, data: GroupedData, name: str, comparison: Any,
@@ -420,7 +472,7 @@ def check_with_core(spec: Spec, data: GroupedData,
     return offer_count_warnings(name, result.comparison)
 
 
-def run_spec(spec: Spec, data: GroupedData | Dataset) -> Run:
+def run_spec(spec: Spec, data: GroupedData | Dataset, progress: Any = None) -> Run:
     """Fit every estimator of `spec` on every outcome.
 
     Parameters
@@ -448,7 +500,8 @@ def run_spec(spec: Spec, data: GroupedData | Dataset) -> Run:
     if isinstance(data, Dataset):
         data = from_rows(spec, data)
     probabilities = design_probabilities(spec, data)
-    results = [_fit_outcome(spec, data, name, probabilities) for name in data.outcomes]
+    results = [_fit_outcome(spec, data, name, probabilities, progress)
+               for name in data.outcomes]
     profile = run_profile(data, probabilities)
     return Run(spec, data, probabilities, tuple(results),
                tuple(data_warnings(spec, data) + fit_warnings(results)

@@ -25,6 +25,7 @@ from strativ.estimators.options import (
 
 from .errors import SpecError
 from .spec_reading import READING_KEYS, ReadOptions, read_options
+from .spec_sensitivity import SENSITIVITY_KEYS, direct_effect_range, randomization_options
 from .tables import DATA_SUFFIXES, FORMATS_TEXT
 from .yamlmarks import KeyPath, compose_with_lines, dotted, line_of
 
@@ -49,11 +50,12 @@ _SECTIONS: dict[str, tuple[str, ...] | None] = {
     "columns": ("outcome", "take_up", "offer", "stratum", "cluster", "covariates"),
     "design": ("offer_probability", "assignment", "sampling"),
     "estimators": None,
-    "inference": ("variance", "level"),
+    "inference": ("variance", "level", "randomization"),
     "output": ("dir", "formats"),
     "missing": ("drop_incomplete_rows",),
     "reading": READING_KEYS,
     "engine": None,
+    "sensitivity": SENSITIVITY_KEYS,
 }
 _REQUIRED_COLUMNS = ("outcome", "take_up", "offer", "stratum")
 _GLOB_CHARS = set("*?[")
@@ -170,6 +172,10 @@ class Spec:
     written by `strativ cells`)."""
     reading: ReadOptions = ReadOptions()
     """How the files are read (separator, decimal mark, offer/take-up codes) and the engine."""
+    direct_effect: tuple[float, float] | None = None
+    """Range of direct effects of the offer to report (`sensitivity.direct_effect`)."""
+    randomization: tuple[int, int] | None = None
+    """(draws, seed) of randomization inference (`inference.randomization`), or None."""
     lines: Mapping[KeyPath, int] = field(default_factory=dict, repr=False, compare=False)
     """Spec line of each key path, for messages raised after loading."""
 
@@ -204,10 +210,14 @@ class Spec:
                 "sampling": self.sampling,
             },
             "estimators": list(self.estimators),
-            "inference": {"variance": self.variance, "level": self.level},
+            "inference": {"variance": self.variance, "level": self.level,
+                          "randomization": None if self.randomization is None else
+                          {"draws": self.randomization[0], "seed": self.randomization[1]}},
             "output": {"dir": str(self.output_dir), "formats": list(self.formats)},
             "missing": {"drop_incomplete_rows": self.drop_incomplete_rows},
             "reading": self.reading.to_dict(),
+            "sensitivity": {"direct_effect": None if self.direct_effect is None
+                            else list(self.direct_effect)},
         }
 
 
@@ -396,6 +406,8 @@ def load_spec(path: Path | str) -> Spec:
         drop_incomplete_rows=drop,
         data_kind="moments" if kind == "moments" else "rows",
         reading=read_options(path, lines, top.get("reading"), top.get("engine")),
+        direct_effect=direct_effect_range(path, lines, top.get("sensitivity")),
+        randomization=randomization_options(path, lines, inference.get("randomization")),
         lines=dict(lines),
     )
 

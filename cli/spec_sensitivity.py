@@ -1,10 +1,13 @@
-"""The spec's `sensitivity` section: the range of direct effects of the offer to report.
+"""The spec's optional checks: the `sensitivity` section (the range of direct effects of the
+offer to report) and `inference.randomization` (re-drawn offers).
 
     sensitivity:
       direct_effect: [-5, 5]     # in the outcome's units, per offered unit
+    inference:
+      randomization: {draws: 2000, seed: 7}     # or: randomization: true
 
-Without it the run still reports the direct effect at which the complier-weighted interval
-reaches zero (`strativ.estimators.sensitivity`).
+Without `sensitivity` the run still reports the direct effect at which the complier-weighted
+interval reaches zero (`strativ.estimators.sensitivity`).
 """
 
 from __future__ import annotations
@@ -16,9 +19,14 @@ from typing import Any
 from .errors import SpecError
 from .yamlmarks import KeyPath, dotted, line_of
 
-__all__ = ["SENSITIVITY_KEYS", "direct_effect_range"]
+__all__ = ["RANDOMIZATION_DRAWS", "RANDOMIZATION_SEED", "SENSITIVITY_KEYS",
+           "direct_effect_range", "randomization_options"]
 
 SENSITIVITY_KEYS = ("direct_effect",)
+RANDOMIZATION_DRAWS = 2000
+"""Re-draws of the offers by default."""
+RANDOMIZATION_SEED = 20261203
+"""Seed of the re-draws by default (recorded in results.json)."""
 
 
 def _error(path: Path, lines: dict[KeyPath, int], keys: KeyPath, message: str,
@@ -56,3 +64,35 @@ def direct_effect_range(path: Path, lines: dict[KeyPath, int],
                      f"high, found {pair!r}", "for example  direct_effect: [-5, 5]  (outcome "
                      "units per offered unit)")
     return float(pair[0]), float(pair[1])
+
+
+def randomization_options(path: Path, lines: dict[KeyPath, int],
+                          value: Any) -> tuple[int, int] | None:
+    """Validate `inference.randomization`: (draws, seed), or None when off.
+
+    Raises
+    ------
+    SpecError
+        Naming the line of an unknown key or a value that is not a whole number in range.
+    """
+    keys: KeyPath = ("inference", "randomization")
+    if value is None or value is False:
+        return None
+    if value is True:
+        return RANDOMIZATION_DRAWS, RANDOMIZATION_SEED
+    if not isinstance(value, dict):
+        raise _error(path, lines, keys, f"'{dotted(keys)}' must be true, false or a mapping "
+                     "with draws and seed", "for example  randomization: {draws: 2000}")
+    for key in value:
+        if key not in ("draws", "seed"):
+            raise _error(path, lines, keys + (key,), f"unknown key {key!r} under "
+                         f"'{dotted(keys)}'", "valid keys: draws, seed")
+    out = []
+    for key, default, low in (("draws", RANDOMIZATION_DRAWS, 99),
+                              ("seed", RANDOMIZATION_SEED, 0)):
+        number = value.get(key, default)
+        if isinstance(number, bool) or not isinstance(number, int) or number < low:
+            raise _error(path, lines, keys + (key,), f"'{dotted(keys + (key,))}' must be a "
+                         f"whole number of at least {low}, found {number!r}")
+        out.append(number)
+    return out[0], out[1]

@@ -39,6 +39,10 @@ reading:
   codes:
     offer: {won: 1, lost: 0}
     take_up: {'yes': 1, 'no': 0}
+sensitivity:
+  direct_effect: [-50, 50]
+inference:
+  randomization: {draws: 99, seed: 3}
 """
 
 

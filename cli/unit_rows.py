@@ -1,0 +1,86 @@
+"""The unit rows of one outcome, for the checks that need rows (randomization inference).
+
+Clean data are summarised by one GROUP BY and never held row by row (`grouped.py`); a
+check that re-draws the offers needs, per unit, the outcome, take-up, offer, stratum and
+cluster. DuckDB reads just those columns from the same view of checked roles, and the stratum
+of each row gets the label the run gave its group, by the same rule (`grouped._labels`). A
+moment table holds no rows.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import DataError
+from .grouped import GroupedData, _labels
+from .loading import STRATUM_JOIN, _integer_labels
+from .units_sql import UNITS_VIEW, units_view
+
+__all__ = ["OutcomeRows", "outcome_rows"]
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class OutcomeRows:
+    """The kept rows that have one outcome."""
+
+    outcome: np.ndarray
+    take_up: np.ndarray
+    offer: np.ndarray
+    stratum: np.ndarray
+    cluster: np.ndarray | None
+
+
+def _from_dataset(data: GroupedData, name: str) -> OutcomeRows:
+    rows = data.rows()
+    y = rows.outcomes[name]
+    keep = ~np.isnan(y)
+    return OutcomeRows(y[keep], rows.take_up[keep], rows.offer[keep], rows.stratum[keep],
+                       None if rows.cluster is None else rows.cluster[keep])
+
+
+def outcome_rows(data: GroupedData, name: str) -> OutcomeRows:
+    """The kept rows with outcome `name`, read again by DuckDB (or taken from the row reader).
+
+    Raises
+    ------
+    DataError
+        For a moment table, which holds no rows.
+    """
+    if data.from_moments:
+        raise DataError(None, None, (), "randomization inference re-draws the offers of the "
+                        "unit rows, and the run reads a moment table",
+                        "run the same spec on the row data (data: instead of moments:)")
+    if data.dataset is not None:
+        return _from_dataset(data, name)
+    import duckdb
+
+    spec = data.spec
+    connection = duckdb.connect()
+    try:
+        roles = units_view(connection, spec)
+        y = roles.outcomes[data.outcomes.index(name)]
+        parts = list(roles.strata)
+        wanted = ["file", *parts, "offer", "take_up", y] + (["cluster"] if roles.cluster else [])
+        complete = " AND ".join(f"{c} IS NOT NULL" for c in
+                                [*parts, "offer", "take_up", y]
+                                + (["cluster"] if roles.cluster else []))
+        if roles.probability:
+            complete += " AND NOT prob_missing"
+        frame = connection.execute(
+            f"SELECT {', '.join(wanted)} FROM {UNITS_VIEW} WHERE {complete}").df()
+    finally:
+        connection.close()
+    combos = frame[["file", *parts]].drop_duplicates().reset_index(drop=True)
+    texts = [np.asarray(_labels(combos, combos, p), dtype=object).astype(str) for p in parts]
+    labels = _integer_labels(texts[0]) if len(texts) == 1 else np.asarray(
+        [STRATUM_JOIN.join(t) for t in zip(*texts, strict=True)], dtype=object)
+    combos["stratum_label"] = labels
+    frame = frame.merge(combos, on=["file", *parts], how="left")
+    cluster = None
+    if roles.cluster:
+        cluster = frame["cluster"].astype(str).to_numpy()
+    return OutcomeRows(frame[y].to_numpy(dtype=float), frame["take_up"].to_numpy(dtype=float),
+                       frame["offer"].to_numpy(dtype=np.int64),
+                       frame["stratum_label"].to_numpy(dtype=object), cluster)

@@ -1,0 +1,70 @@
+"""Randomization inference in a run: the rows DuckDB reads again give the core's test.
+
+Reference: `strativ.estimators.randomization` on the demo's rows read by pandas (the core
+itself is checked against full enumeration in tests/test_randomization.py); spec and moment
+table refusals by construction.
+"""
+
+from __future__ import annotations
+
+import json
+
+import pandas as pd
+import pytest
+from cli_support import REPO, assert_clean_failure
+from typer.testing import CliRunner
+
+from strativ.cli.app import app
+from strativ.estimators.randomization import randomization_draws, randomization_test
+
+SPEC = f"""\
+data: {REPO / "demo_data" / "round_*.csv"}
+columns: {{outcome: gas_therms, take_up: retrofitted, offer: won_lottery, stratum: district}}
+inference:
+  randomization: {{draws: 199, seed: 11}}
+"""
+
+
+def test_the_run_gives_the_cores_test_on_the_rows(tmp_path) -> None:
+    spec = tmp_path / "ri.yaml"
+    spec.write_text(SPEC, encoding="utf-8")
+    done = CliRunner().invoke(app, ["run", str(spec), "--out", str(tmp_path / "out")])
+    assert done.exit_code == 0, done.stderr
+    doc = json.loads((tmp_path / "out" / "results.json").read_text(encoding="utf-8"))
+    got = doc["comparisons"][0]["randomization"]
+    rows = pd.concat([pd.read_csv(p) for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
+    want = randomization_test(randomization_draws(
+        rows["gas_therms"], rows["retrofitted"], rows["won_lottery"],
+        rows["district"].to_numpy(object), draws=199, seed=11))
+    # reference: the core's test on the same rows, same draws and seed
+    assert got["p_value"] == want.p_value
+    assert got["interval"] == pytest.approx(list(want.interval), rel=1e-9)
+    assert (got["draws"], got["seed"], got["exact"]) == (199, 11, False)
+    assert doc["spec"]["inference"]["randomization"] == {"draws": 199, "seed": 11}
+    assert "Randomization inference over 199 re-drawn" in " ".join(done.stdout.split())
+
+
+def test_a_moment_table_cannot_be_redrawn(tmp_path) -> None:
+    spec = tmp_path / "ri.yaml"
+    spec.write_text(SPEC.replace("inference:\n  randomization: {draws: 199, seed: 11}\n", ""),
+                    encoding="utf-8")
+    table = tmp_path / "cells.csv"
+    assert CliRunner().invoke(app, ["cells", str(spec), "--out", str(table)]).exit_code == 0
+    moments = tmp_path / "m.yaml"
+    moments.write_text(SPEC.replace(f"data: {REPO / 'demo_data' / 'round_*.csv'}",
+                                    f"moments: {table}"), encoding="utf-8")
+    done = CliRunner().invoke(app, ["run", str(moments), "--out", str(tmp_path / "out")])
+    assert_clean_failure(done, 3, "randomization inference re-draws the offers",
+                         "data: instead of moments:")
+
+
+@pytest.mark.parametrize(("value", "fragment"), [
+    ("{draws: 10}", "at least 99"),
+    ("{rounds: 100}", "unknown key 'rounds'"),
+    ("often", "must be true, false or a mapping"),
+])
+def test_a_wrong_option_is_named(tmp_path, value: str, fragment: str) -> None:
+    spec = tmp_path / "ri.yaml"
+    spec.write_text(SPEC.replace("{draws: 199, seed: 11}", value), encoding="utf-8")
+    done = CliRunner().invoke(app, ["check", str(spec)])
+    assert_clean_failure(done, 2, "ri.yaml", fragment)
