@@ -14,7 +14,6 @@ from strativ.estimators import Comparison
 from strativ.estimators.options import WEAK_FIRST_STAGE_F
 from strativ.estimators.profile import CovariateProfile
 
-from .covariate_data import ADJUSTED_VARIANCES
 from .grouped import GroupedData
 from .spec import Spec
 
@@ -90,12 +89,6 @@ def data_warnings(spec: Spec, dataset: GroupedData) -> list[str]:
     if cols.covariates and not dataset.roles.covariates:
         out.append("covariates " + ", ".join(cols.covariates) + " are not in the moment table "
                    "and were not used: no balance check, and every estimate is unadjusted")
-    elif cols.covariates and variance_used(spec) not in ADJUSTED_VARIANCES:
-        out.append("covariates " + ", ".join(cols.covariates) + " are used for the balance "
-                   f"check and the complier means but not for adjustment: variance "
-                   f"'{spec.variance}' with covariates needs fourth moments of the rows, "
-                   "which strativ does not compute yet; use variance 'stratified' for "
-                   "adjusted estimates")
     if cols.covariates and dataset.roles.covariates:
         g = dataset.groups
         for name, role in zip(cols.covariates, dataset.roles.covariates, strict=True):

@@ -20,8 +20,8 @@ from .grouped import GroupedData
 __all__ = ["ADJUSTED_VARIANCES", "adjustment_moments", "run_profile"]
 
 ADJUSTED_VARIANCES = ("stratified", "cluster")
-"""Variance flavours under which the run refits each estimator with the covariates: the
-design-based ones, applied to the adjusted residual."""
+"""Variance flavours of the adjusted fits that come from the group moments alone (the
+design-based ones, applied to the adjusted residual); the robust ones read the rows again."""
 
 
 def _column(data: GroupedData, name: str, rows: np.ndarray | slice = slice(None)) -> np.ndarray:

@@ -18,26 +18,19 @@ import numpy as np
 from strativ.estimators import (
     CellTable,
     Comparison,
-    Estimate,
     EstimatorError,
     build_cells,
-    cells_from_moments,
     excluded_strata,
-    fit,
     fit_all,
 )
-from strativ.estimators.adjust import AdjustedEstimate, fit_adjusted
+from strativ.estimators.adjust import AdjustedEstimate
 from strativ.estimators.attrition import AttritionTest, attrition_test
 from strativ.estimators.profile import CovariateProfile
 from strativ.estimators.randomization import (
     RandomizationTest,
-    randomization_draws,
-    randomization_test,
 )
 from strativ.estimators.sensitivity import (
     DirectEffectSensitivity,
-    direct_effect_sensitivity,
-    shift_by_offer,
 )
 
 from .cautions import (
@@ -48,13 +41,13 @@ from .cautions import (
     variance_used,
 )
 from .core_errors import located_error
-from .covariate_data import ADJUSTED_VARIANCES, adjustment_moments, run_profile
+from .covariate_data import run_profile
 from .errors import DataError
 from .grouped import GroupedData, from_rows
 from .loading import Dataset
 from .multiplicity import OutcomeFamily, outcome_families
+from .outcome_checks import adjusted_fits, direct_effect, randomization
 from .spec import Spec, suggest
-from .unit_rows import outcome_rows
 
 __all__ = [
     "AttritionCell",
@@ -372,72 +365,14 @@ def _fit_outcome(spec: Spec, data: GroupedData, name: str,
                                  level=spec.level, offer_probability=mapping)
         except EstimatorError as exc:
             raise _located(exc, spec, data, name, probabilities=mapping) from None
-        adjusted = _adjusted(spec, data, name, comparison, mapping)
+        adjusted = adjusted_fits(spec, data, name, comparison, mapping)
     g = data.groups
     role = data.roles.outcomes[data.outcomes.index(name)]
     test = attrition_test(g["stratum"].tolist(), g["offer"].to_numpy(), g["n"].to_numpy(),
                           g[f"n_{role}"].to_numpy())
     return OutcomeResult(name, cells, comparison, missing, _attrition(name, data), adjusted,
-                         test, _sensitivity(spec, data, name, comparison, mapping),
-                         _randomization(spec, data, name, progress))
-
-
-def _randomization(spec: Spec, data: GroupedData, name: str,
-                   progress: Any = None) -> RandomizationTest | None:
-    """Randomization inference on the rows of outcome `name` (None when not asked for)."""
-    if spec.randomization is None:
-        return None
-    draws, seed = spec.randomization
-    rows = outcome_rows(data, name)
-    try:
-        found = randomization_draws(rows.outcome, rows.take_up, rows.offer, rows.stratum,
-                                    cluster=rows.cluster, draws=draws, seed=seed,
-                                    progress=progress)
-    except EstimatorError as exc:
-        raise DataError(None, name, (), f"randomization inference: "
-                        f"{getattr(exc, 'message', exc)}") from None
-    return randomization_test(found, level=spec.level)
-
-
-def _sensitivity(spec: Spec, data: GroupedData, name: str, comparison: Comparison,
-                 mapping: dict[Any, float] | None) -> DirectEffectSensitivity | None:
-    """The reported complier estimator refitted on ``y − δ Z`` (METHODS.md §7)."""
-    fitted = [e.estimator for e in comparison.estimates]
-    estimator = comparison.gap.complier_estimator if comparison.gap is not None else \
-        next((e for e in ("weighted", "interacted") if e in fitted), fitted[0])
-    frame = data.moment_frame(name)
-
-    def fit_at(delta: float) -> Estimate:
-        return fit(cells_from_moments(shift_by_offer(frame, delta)), estimator=estimator,
-                   variance=variance_used(spec), assignment=spec.assignment,
-                   sampling=spec.sampling, level=spec.level, offer_probability=mapping)
-
-    return direct_effect_sensitivity(fit_at, estimator, spec.direct_effect)
-
-
-def _adjusted(spec: Spec, data: GroupedData, name: str, comparison: Any,
-              mapping: dict[Any, float] | None) -> tuple[AdjustedEstimate, ...]:
-    """Every estimator of `comparison` refitted with the spec's covariates, on the same
-    strata; () without covariates or under a robust flavour (`cautions` says why)."""
-    variance = variance_used(spec)
-    if variance not in ADJUSTED_VARIANCES:
-        return ()
-    moments = adjustment_moments(data, name, [r.label for r in comparison.strata.rows])
-    if moments is None:
-        return ()
-    out = []
-    for estimate in comparison.estimates:
-        try:
-            out.append(fit_adjusted(
-                moments, estimate.estimator, tuple(spec.columns.covariates), variance=variance,
-                assignment=spec.assignment, sampling=spec.sampling, level=spec.level,
-                offer_probability=mapping, unadjusted_std_error=estimate.std_error))
-        except EstimatorError as exc:
-            raise DataError(None, ", ".join(spec.columns.covariates), (),
-                            f"outcome '{name}': {getattr(exc, 'message', exc)}",
-                            "the covariates are named under 'columns: covariates:' in "
-                            f"{spec.path.name}") from None
-    return tuple(out)
+                         test, direct_effect(spec, data, name, comparison, mapping),
+                         randomization(spec, data, name, progress))
 
 
 def check_with_core(spec: Spec, data: GroupedData,

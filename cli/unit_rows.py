@@ -30,14 +30,33 @@ class OutcomeRows:
     offer: np.ndarray
     stratum: np.ndarray
     cluster: np.ndarray | None
+    covariates: np.ndarray | None = None
+    """(n, k) covariate values, a missing value set to its stratum's centre (as in the
+    group moments); None without covariates."""
+
+
+def _filled(data: GroupedData, stratum: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """Covariates with each missing value set to its stratum's centre in the group moments."""
+    g = data.groups
+    out = values.copy()
+    for j, role in enumerate(data.roles.covariates):
+        centre = dict(zip(g["stratum"].tolist(), g[f"centre_{role}"].tolist(), strict=True))
+        gaps = np.isnan(out[:, j])
+        if gaps.any():
+            out[gaps, j] = [centre[label] for label in stratum[gaps].tolist()]
+    return out
 
 
 def _from_dataset(data: GroupedData, name: str) -> OutcomeRows:
     rows = data.rows()
     y = rows.outcomes[name]
     keep = ~np.isnan(y)
+    covariates = None
+    if data.roles.covariates:
+        raw = np.column_stack([rows.covariates[c][keep] for c in data.spec.columns.covariates])
+        covariates = _filled(data, rows.stratum[keep], raw)
     return OutcomeRows(y[keep], rows.take_up[keep], rows.offer[keep], rows.stratum[keep],
-                       None if rows.cluster is None else rows.cluster[keep])
+                       None if rows.cluster is None else rows.cluster[keep], covariates)
 
 
 def outcome_rows(data: GroupedData, name: str) -> OutcomeRows:
@@ -63,6 +82,7 @@ def outcome_rows(data: GroupedData, name: str) -> OutcomeRows:
         y = roles.outcomes[data.outcomes.index(name)]
         parts = list(roles.strata)
         wanted = ["file", *parts, "offer", "take_up", y] + (["cluster"] if roles.cluster else [])
+        wanted += list(data.roles.covariates)
         complete = " AND ".join(f"{c} IS NOT NULL" for c in
                                 [*parts, "offer", "take_up", y]
                                 + (["cluster"] if roles.cluster else []))
@@ -81,6 +101,10 @@ def outcome_rows(data: GroupedData, name: str) -> OutcomeRows:
     cluster = None
     if roles.cluster:
         cluster = frame["cluster"].astype(str).to_numpy()
+    stratum = frame["stratum_label"].to_numpy(dtype=object)
+    covariates = None
+    if data.roles.covariates:
+        raw = frame[list(data.roles.covariates)].to_numpy(dtype=float, na_value=np.nan)
+        covariates = _filled(data, stratum, raw)
     return OutcomeRows(frame[y].to_numpy(dtype=float), frame["take_up"].to_numpy(dtype=float),
-                       frame["offer"].to_numpy(dtype=np.int64),
-                       frame["stratum_label"].to_numpy(dtype=object), cluster)
+                       frame["offer"].to_numpy(dtype=np.int64), stratum, cluster, covariates)

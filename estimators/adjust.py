@@ -25,13 +25,16 @@ group of (stratum, offer, take-up).
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
 import pandas as pd
+from scipy.special import ndtr
 
+from .adjust_robust import RobustFit
 from .errors import InputError
+from .intervals import critical_value, normal_interval
 from .moments import cells_from_moments
 from .results import Estimate
 
@@ -263,6 +266,7 @@ def fit_adjusted(
     level: float = 0.95,
     offer_probability: Mapping[Any, float] | None = None,
     unadjusted_std_error: float | None = None,
+    robust: RobustFit | None = None,
 ) -> AdjustedEstimate:
     """Fit one estimator with covariates from group moments.
 
@@ -274,13 +278,17 @@ def fit_adjusted(
         As in `fit`.
     covariates : tuple of str
         Names of the k covariates of `m`.
-    variance : {"stratified", "cluster"}, default="stratified"
-        The design-based flavours, applied to the adjusted residual. The robust sandwich of a
-        regression with covariates needs fourth moments and is not offered here.
+    variance : str, default="stratified"
+        The design-based flavours (stratified, cluster) apply to the adjusted residual; the
+        robust ones take their standard error from `robust`.
     assignment, sampling, level, offer_probability
         As in `fit`; design probabilities also set the weighted estimator's weights.
     unadjusted_std_error : float, optional
         The same estimator's standard error without covariates, for the ratio.
+    robust : RobustFit, optional
+        The estimator's robust fit on the rows (`adjust_robust.robust_adjusted`), for the
+        robust flavours: its standard error replaces the moments' and the interval uses the
+        normal reference; the weak-IV robust set then treats the slopes as known.
 
     Returns
     -------
@@ -293,9 +301,9 @@ def fit_adjusted(
     """
     from .fitting import fit
 
-    if variance not in ("stratified", "cluster"):
-        raise InputError("variance", f"covariate adjustment gives design-based variances "
-                         f"(stratified, cluster), not {variance!r}.")
+    if variance not in ("stratified", "cluster") and robust is None:
+        raise InputError("variance", f"variance {variance!r} with covariates needs the "
+                         "robust fit from the rows (adjust_robust.robust_adjusted).")
     flat = constant_covariates(m, covariates)
     if flat:
         raise InputError("covariates", f"covariate {flat[0]!r} does not vary within any "
@@ -305,6 +313,19 @@ def fit_adjusted(
     cells = cells_from_moments(adjusted_moments(m, gamma))
     result = fit(cells, estimator=estimator, variance=variance, assignment=assignment,
                  sampling=sampling, level=level, offer_probability=offer_probability)
+    if robust is not None and variance not in ("stratified", "cluster"):
+        se = robust.std_error
+        interval = None if se is None or result.estimate is None else \
+            normal_interval(result.estimate, se, critical_value(level))
+        p_value = None if interval is None else \
+            float(2.0 * ndtr(-abs(result.estimate) / se))
+        result = replace(result, std_error=se, interval=interval, degrees_of_freedom=None,
+                         p_value=p_value, std_error_reason=None if se is not None else
+                         "no robust standard error: as many coefficients as units, or a "
+                         "single cluster",
+                         notes=result.notes + ("robust sandwich of the regression with "
+                                               "covariates; the weak-IV robust set treats "
+                                               "the covariate slopes as known",))
     ratio = None
     if result.std_error is not None and unadjusted_std_error:
         ratio = float(result.std_error / unadjusted_std_error)

@@ -103,6 +103,19 @@ def _minimum(design: Design, spread: np.ndarray, theta: float | None, scale: flo
             continue
         if j_found < j_best:
             t_best, j_best = t_found, j_found
+    # a minimum between two uneven grid points (next to a stratum's own effect) can leave the
+    # best grid point off the minimum: polish at the derivative's root in a widening bracket
+    step = float(np.min(np.diff(grid))) if grid.size > 1 else 1.0
+    step = max(step, 1e-9 * max(abs(t_best), 1.0))
+    for _ in range(60):
+        low, high = t_best - step, t_best + step
+        if slope(low) < 0.0 < slope(high):
+            t_root = float(brentq(slope, low, high, xtol=1e-15, rtol=4 * np.finfo(float).eps))
+            j_root = float(value(t_root))
+            if j_root < j_best:
+                t_best, j_best = t_root, j_root
+            break
+        step *= 2.0
     return t_best * unit, j_best
 
 

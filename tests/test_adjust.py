@@ -138,3 +138,71 @@ def test_collinear_covariates_are_refused(rows) -> None:
     twice = rows.assign(age2=2 * rows["age"] + 3)
     with pytest.raises(InputError, match="collinear"):
         adjustment_slopes("fixed_effects", moments_of(twice.head(3000), ["age", "age2"]))
+
+
+# --- the robust sandwich with covariates, from the rows ---------------------------------------
+
+from strativ.estimators.adjust_robust import robust_adjusted  # noqa: E402
+
+SE_RTOL = 1e-8
+
+
+def _robust(rows, estimator, scaled=False, cluster=None):
+    return robust_adjusted(rows["y"], rows["d"], rows["z"], rows["s"].to_numpy(object),
+                           rows[COVARIATES].to_numpy(), estimator=estimator, scaled=scaled,
+                           cluster=cluster)
+
+
+@pytest.mark.parametrize("debiased", [False, True])
+def test_fixed_effects_robust_with_covariates_equals_linearmodels(rows, debiased) -> None:
+    dummies = pd.get_dummies(rows["s"], dtype=float)
+    result = IV2SLS(rows["y"], pd.concat([dummies, rows[COVARIATES]], axis=1), rows["d"],
+                    rows["z"]).fit(cov_type="robust", debiased=debiased)
+    got = _robust(rows, "fixed_effects", scaled=debiased)
+    # reference: linearmodels IV2SLS robust covariance (debiased: times n / (n - k))
+    assert got.std_error == pytest.approx(result.std_errors["d"], rel=SE_RTOL)
+    assert got.estimate == pytest.approx(result.params["d"], rel=RTOL)
+    # by construction: the same slopes as from the group moments
+    assert got.slopes == pytest.approx(tuple(adjustment_slopes(
+        "fixed_effects", moments_of(rows, COVARIATES))), rel=1e-9)
+
+
+@pytest.mark.parametrize("debiased", [False, True])
+def test_weighted_robust_with_covariates_equals_linearmodels(rows, debiased) -> None:
+    p = rows.groupby("s")["z"].transform("mean")
+    weights = rows["z"] / p + (1 - rows["z"]) / (1 - p)
+    exog = pd.concat([pd.Series(1.0, index=rows.index, name="const"), rows[COVARIATES]], axis=1)
+    result = IV2SLS(rows["y"], exog, rows["d"], rows["z"], weights=weights).fit(
+        cov_type="robust", debiased=debiased)
+    # reference: linearmodels IV2SLS robust covariance with the inverse-probability weights
+    assert _robust(rows, "weighted", scaled=debiased).std_error == pytest.approx(
+        result.std_errors["d"], rel=SE_RTOL)
+
+
+def test_interacted_robust_with_covariates_equals_the_saturated_sandwich(rows) -> None:
+    dummies = pd.get_dummies(rows["s"], dtype=float)
+    labels = list(dummies.columns)
+    endog = dummies.mul(rows["d"], axis=0).add_prefix("d_")
+    instruments = dummies.mul(rows["z"], axis=0).add_prefix("z_")
+    result = IV2SLS(rows["y"], pd.concat([dummies, rows[COVARIATES]], axis=1), endog,
+                    instruments).fit(cov_type="robust", debiased=False)
+    size = rows.groupby("s").size()
+    first = rows[rows.z == 1].groupby("s")["d"].mean() - rows[rows.z == 0].groupby("s")["d"].mean()
+    omega = (size * first / (size * first).sum())[labels].to_numpy()
+    names = [f"d_{s}" for s in labels]
+    covariance = result.cov.loc[names, names].to_numpy()
+    # reference: linearmodels' robust covariance of the saturated regression, combined with
+    # the complier weights held fixed
+    assert _robust(rows, "interacted").std_error == pytest.approx(
+        float(np.sqrt(omega @ covariance @ omega)), rel=SE_RTOL)
+
+
+def test_cluster_robust_with_covariates_equals_linearmodels(rows) -> None:
+    cluster = (np.arange(len(rows)) // 3).astype(object)  # consecutive triples as clusters
+    dummies = pd.get_dummies(rows["s"], dtype=float)
+    result = IV2SLS(rows["y"], pd.concat([dummies, rows[COVARIATES]], axis=1), rows["d"],
+                    rows["z"]).fit(cov_type="clustered", clusters=pd.Series(cluster),
+                                   debiased=False)
+    # reference: linearmodels IV2SLS clustered covariance, debiased=False (no scale)
+    assert _robust(rows, "fixed_effects", cluster=cluster).std_error == pytest.approx(
+        result.std_errors["d"], rel=SE_RTOL)

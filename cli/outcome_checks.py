@@ -1,0 +1,105 @@
+"""The checks a run adds to each outcome's comparison: every estimator with the covariates,
+a direct effect of the offer, and randomization inference. Each hands the run's data to the
+core (`strativ.estimators.adjust`, `adjust_robust`, `sensitivity`, `randomization`) and
+locates the core's refusals; nothing is computed here.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import pandas as pd
+
+from strativ.estimators import Comparison, Estimate, EstimatorError, cells_from_moments, fit
+from strativ.estimators.adjust import AdjustedEstimate, fit_adjusted
+from strativ.estimators.adjust_robust import robust_adjusted
+from strativ.estimators.randomization import (
+    RandomizationTest,
+    randomization_draws,
+    randomization_test,
+)
+from strativ.estimators.sensitivity import (
+    DirectEffectSensitivity,
+    direct_effect_sensitivity,
+    shift_by_offer,
+)
+
+from .cautions import variance_used
+from .covariate_data import ADJUSTED_VARIANCES, adjustment_moments
+from .errors import DataError
+from .grouped import GroupedData
+from .spec import Spec
+from .unit_rows import outcome_rows
+
+__all__ = ["adjusted_fits", "direct_effect", "randomization"]
+
+
+def randomization(spec: Spec, data: GroupedData, name: str,
+                   progress: Any = None) -> RandomizationTest | None:
+    """Randomization inference on the rows of outcome `name` (None when not asked for)."""
+    if spec.randomization is None:
+        return None
+    draws, seed = spec.randomization
+    rows = outcome_rows(data, name)
+    try:
+        found = randomization_draws(rows.outcome, rows.take_up, rows.offer, rows.stratum,
+                                    cluster=rows.cluster, draws=draws, seed=seed,
+                                    progress=progress)
+    except EstimatorError as exc:
+        raise DataError(None, name, (), f"randomization inference: "
+                        f"{getattr(exc, 'message', exc)}") from None
+    return randomization_test(found, level=spec.level)
+
+
+def direct_effect(spec: Spec, data: GroupedData, name: str, comparison: Comparison,
+                 mapping: dict[Any, float] | None) -> DirectEffectSensitivity | None:
+    """The reported complier estimator refitted on ``y − δ Z`` (METHODS.md §7)."""
+    fitted = [e.estimator for e in comparison.estimates]
+    estimator = comparison.gap.complier_estimator if comparison.gap is not None else \
+        next((e for e in ("weighted", "interacted") if e in fitted), fitted[0])
+    frame = data.moment_frame(name)
+
+    def fit_at(delta: float) -> Estimate:
+        return fit(cells_from_moments(shift_by_offer(frame, delta)), estimator=estimator,
+                   variance=variance_used(spec), assignment=spec.assignment,
+                   sampling=spec.sampling, level=spec.level, offer_probability=mapping)
+
+    return direct_effect_sensitivity(fit_at, estimator, spec.direct_effect)
+
+
+def adjusted_fits(spec: Spec, data: GroupedData, name: str, comparison: Any,
+              mapping: dict[Any, float] | None) -> tuple[AdjustedEstimate, ...]:
+    """Every estimator of `comparison` refitted with the spec's covariates, on the same
+    strata; () without covariates. The robust flavours read the rows a second time for the
+    sandwich (`strativ.estimators.adjust_robust`)."""
+    variance = variance_used(spec)
+    labels = [r.label for r in comparison.strata.rows]
+    moments = adjustment_moments(data, name, labels)
+    if moments is None:
+        return ()
+    rows = keep = None
+    if variance not in ADJUSTED_VARIANCES:
+        rows = outcome_rows(data, name)
+        keep = pd.Series(rows.stratum, dtype=object).isin(labels).to_numpy()
+    out = []
+    for estimate in comparison.estimates:
+        try:
+            robust = None
+            if rows is not None:
+                robust = robust_adjusted(
+                    rows.outcome[keep], rows.take_up[keep], rows.offer[keep], rows.stratum[keep],
+                    rows.covariates[keep], estimator=estimate.estimator,
+                    scaled=variance == "robust_scaled",
+                    cluster=None if rows.cluster is None else rows.cluster[keep],
+                    probability=mapping)
+            out.append(fit_adjusted(
+                moments, estimate.estimator, tuple(spec.columns.covariates), variance=variance,
+                assignment=spec.assignment, sampling=spec.sampling, level=spec.level,
+                offer_probability=mapping, unadjusted_std_error=estimate.std_error,
+                robust=robust))
+        except EstimatorError as exc:
+            raise DataError(None, ", ".join(spec.columns.covariates), (),
+                            f"outcome '{name}': {getattr(exc, 'message', exc)}",
+                            "the covariates are named under 'columns: covariates:' in "
+                            f"{spec.path.name}") from None
+    return tuple(out)
