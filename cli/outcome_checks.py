@@ -39,7 +39,7 @@ def randomization(spec: Spec, data: GroupedData, name: str,
     """Randomization inference on the rows of outcome `name` (None when not asked for)."""
     if spec.randomization is None:
         return None
-    draws, seed = spec.randomization
+    draws, seed, null_effect = spec.randomization
     rows = outcome_rows(data, name)
     try:
         found = randomization_draws(rows.outcome, rows.take_up, rows.offer, rows.stratum,
@@ -48,7 +48,7 @@ def randomization(spec: Spec, data: GroupedData, name: str,
     except EstimatorError as exc:
         raise DataError(None, name, (), f"randomization inference: "
                         f"{getattr(exc, 'message', exc)}") from None
-    return randomization_test(found, level=spec.level)
+    return randomization_test(found, null_effect=null_effect, level=spec.level)
 
 
 def direct_effect(spec: Spec, data: GroupedData, name: str, comparison: Comparison,

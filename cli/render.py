@@ -220,8 +220,9 @@ def _randomization(console: Console, result: OutcomeResult) -> None:
         f"none ({test.interval_reason})"
     console.print(_indented(
         f"Randomization inference over {how}: p = {format_number(test.p_value, digits=3)} "
-        f"for no effect of take-up on any unit; {test.level:.0%} randomization interval "
-        f"{span}."))
+        + ("for no effect of take-up on any unit" if test.null_effect == 0 else
+           f"for an effect of exactly {format_number(test.null_effect)} on every unit")
+        + f"; {test.level:.0%} randomization interval {span}."))
 
 
 def _excluded(console: Console, result: OutcomeResult) -> None:
@@ -245,7 +246,9 @@ def _outcome(console: Console, result: OutcomeResult) -> None:
                   + (f"; {result.missing:,} rows without this outcome left out"
                      if result.missing else ""))
     test = result.attrition_test
-    if result.missing and test is not None and test.offered and test.not_offered:
+    if not result.missing:
+        console.print("missing: no row lacks this outcome (no attrition to test)")
+    elif test is not None and test.offered and test.not_offered:
         p = "no test" if test.p_value is None else \
             f"Mantel-Haenszel p = {format_number(test.p_value, digits=3)}"
         console.print(f"missing: {_share(test.missing_offered / test.offered)} of offered, "

@@ -174,8 +174,9 @@ class Spec:
     """How the files are read (separator, decimal mark, offer/take-up codes) and the engine."""
     direct_effect: tuple[float, float] | None = None
     """Range of direct effects of the offer to report (`sensitivity.direct_effect`)."""
-    randomization: tuple[int, int] | None = None
-    """(draws, seed) of randomization inference (`inference.randomization`), or None."""
+    randomization: tuple[int, int, float] | None = None
+    """(draws, seed, null effect) of randomization inference (`inference.randomization`), or
+    None."""
     lines: Mapping[KeyPath, int] = field(default_factory=dict, repr=False, compare=False)
     """Spec line of each key path, for messages raised after loading."""
 
@@ -212,7 +213,8 @@ class Spec:
             "estimators": list(self.estimators),
             "inference": {"variance": self.variance, "level": self.level,
                           "randomization": None if self.randomization is None else
-                          {"draws": self.randomization[0], "seed": self.randomization[1]}},
+                          {"draws": self.randomization[0], "seed": self.randomization[1],
+                           "null_effect": self.randomization[2]}},
             "output": {"dir": str(self.output_dir), "formats": list(self.formats)},
             "missing": {"drop_incomplete_rows": self.drop_incomplete_rows},
             "reading": self.reading.to_dict(),

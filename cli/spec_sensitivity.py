@@ -4,7 +4,7 @@ offer to report) and `inference.randomization` (re-drawn offers).
     sensitivity:
       direct_effect: [-5, 5]     # in the outcome's units, per offered unit
     inference:
-      randomization: {draws: 2000, seed: 7}     # or: randomization: true
+      randomization: {draws: 2000, seed: 7, null_effect: 0}   # or: randomization: true
 
 Without `sensitivity` the run still reports the direct effect at which the complier-weighted
 interval reaches zero (`strativ.estimators.sensitivity`).
@@ -67,8 +67,8 @@ def direct_effect_range(path: Path, lines: dict[KeyPath, int],
 
 
 def randomization_options(path: Path, lines: dict[KeyPath, int],
-                          value: Any) -> tuple[int, int] | None:
-    """Validate `inference.randomization`: (draws, seed), or None when off.
+                          value: Any) -> tuple[int, int, float] | None:
+    """Validate `inference.randomization`: (draws, seed, null effect), or None when off.
 
     Raises
     ------
@@ -79,14 +79,14 @@ def randomization_options(path: Path, lines: dict[KeyPath, int],
     if value is None or value is False:
         return None
     if value is True:
-        return RANDOMIZATION_DRAWS, RANDOMIZATION_SEED
+        return RANDOMIZATION_DRAWS, RANDOMIZATION_SEED, 0.0
     if not isinstance(value, dict):
         raise _error(path, lines, keys, f"'{dotted(keys)}' must be true, false or a mapping "
                      "with draws and seed", "for example  randomization: {draws: 2000}")
     for key in value:
-        if key not in ("draws", "seed"):
+        if key not in ("draws", "seed", "null_effect"):
             raise _error(path, lines, keys + (key,), f"unknown key {key!r} under "
-                         f"'{dotted(keys)}'", "valid keys: draws, seed")
+                         f"'{dotted(keys)}'", "valid keys: draws, seed, null_effect")
     out = []
     for key, default, low in (("draws", RANDOMIZATION_DRAWS, 99),
                               ("seed", RANDOMIZATION_SEED, 0)):
@@ -95,4 +95,8 @@ def randomization_options(path: Path, lines: dict[KeyPath, int],
             raise _error(path, lines, keys + (key,), f"'{dotted(keys + (key,))}' must be a "
                          f"whole number of at least {low}, found {number!r}")
         out.append(number)
-    return out[0], out[1]
+    null = value.get("null_effect", 0.0)
+    if isinstance(null, bool) or not isinstance(null, (int, float)) or not math.isfinite(null):
+        raise _error(path, lines, keys + ("null_effect",), f"'{dotted(keys)}.null_effect' "
+                     f"must be a number (the effect of take-up under the null), found {null!r}")
+    return out[0], out[1], float(null)

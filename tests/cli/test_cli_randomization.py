@@ -40,7 +40,8 @@ def test_the_run_gives_the_cores_test_on_the_rows(tmp_path) -> None:
     assert got["p_value"] == want.p_value
     assert got["interval"] == pytest.approx(list(want.interval), rel=1e-9)
     assert (got["draws"], got["seed"], got["exact"]) == (199, 11, False)
-    assert doc["spec"]["inference"]["randomization"] == {"draws": 199, "seed": 11}
+    assert doc["spec"]["inference"]["randomization"] == {"draws": 199, "seed": 11,
+                                                         "null_effect": 0.0}
     assert "Randomization inference over 199 re-drawn" in " ".join(done.stdout.split())
 
 
@@ -68,3 +69,22 @@ def test_a_wrong_option_is_named(tmp_path, value: str, fragment: str) -> None:
     spec.write_text(SPEC.replace("{draws: 199, seed: 11}", value), encoding="utf-8")
     done = CliRunner().invoke(app, ["check", str(spec)])
     assert_clean_failure(done, 2, "ri.yaml", fragment)
+
+
+def test_a_null_effect_other_than_zero_is_tested(tmp_path) -> None:
+    spec = tmp_path / "ri.yaml"
+    spec.write_text(SPEC.replace("{draws: 199, seed: 11}",
+                                 "{draws: 199, seed: 11, null_effect: -150}"), encoding="utf-8")
+    done = CliRunner().invoke(app, ["run", str(spec), "--out", str(tmp_path / "out")])
+    assert done.exit_code == 0, done.stderr
+    got = json.loads((tmp_path / "out" / "results.json").read_text(encoding="utf-8"))[
+        "comparisons"][0]["randomization"]
+    rows = pd.concat([pd.read_csv(p) for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
+    want = randomization_test(randomization_draws(
+        rows["gas_therms"], rows["retrofitted"], rows["won_lottery"],
+        rows["district"].to_numpy(object), draws=199, seed=11), null_effect=-150.0)
+    # reference: the core's test of the same sharp null on the same rows and draws
+    assert (got["null_effect"], got["p_value"]) == (-150.0, want.p_value)
+    # by construction: -150 lies inside the randomization interval, so it is not rejected
+    assert got["interval"][0] < -150 < got["interval"][1] and got["p_value"] > 0.05
+    assert "for an effect of exactly" in " ".join(done.stdout.split())
