@@ -96,8 +96,8 @@ def data_warnings(spec: Spec, dataset: GroupedData) -> list[str]:
             if gaps:
                 out.append(f"covariate '{name}' is missing in {gaps:,} of {dataset.n_rows:,} "
                            "rows: balance and complier means leave those rows out; the "
-                           "adjusted estimates set them to a value of their stratum (which "
-                           "keeps every row and only costs precision)")
+                           "adjusted estimates keep them, with the stratum's mean in place of "
+                           "the gap and a missing indicator among the covariates")
     form = cluster_form(spec)
     if form is not None and spec.variance != "cluster":
         out.append(f"cluster column '{cols.cluster}' is used: variance '{spec.variance}' "

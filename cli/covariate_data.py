@@ -8,6 +8,7 @@ The columns are those `strativ.estimators.group_query` writes for covariates (vi
 from __future__ import annotations
 
 from collections.abc import Iterable
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -17,7 +18,7 @@ from strativ.estimators.profile import CovariateProfile, covariate_profile
 
 from .grouped import GroupedData
 
-__all__ = ["ADJUSTED_VARIANCES", "adjustment_moments", "run_profile"]
+__all__ = ["ADJUSTED_VARIANCES", "AdjustmentInputs", "adjustment_inputs", "run_profile"]
 
 ADJUSTED_VARIANCES = ("stratified", "cluster")
 """Variance flavours of the adjusted fits that come from the group moments alone (the
@@ -58,31 +59,90 @@ def run_profile(data: GroupedData, probabilities: dict[Any, float] | None
         columns("sum_{}_sq"), columns("centre_{}"), cross, probability=probabilities)
 
 
-def adjustment_moments(data: GroupedData, outcome: str,
-                       strata: Iterable[Any]) -> AdjustmentMoments | None:
-    """The group moments of `outcome` and the covariates over the rows where the outcome is
-    present, in the given (analysed) strata; None without covariates."""
+@dataclass(frozen=True, slots=True, eq=False)
+class AdjustmentInputs:
+    """What the covariate adjustment of one outcome reads: the group moments of the covariates
+    (each missing value at its stratum's mean) and of the missing indicators of those with
+    gaps, with the names and fill values that the rows must follow too."""
+
+    moments: AdjustmentMoments
+    """Group moments of the analysed strata, rows with the outcome."""
+    names: tuple[str, ...]
+    """Covariate names, then ``<name> missing`` for each covariate with gaps."""
+    gaps: tuple[int, ...]
+    """Indices of the covariates with gaps among these rows."""
+    means: tuple[dict[Any, float], ...]
+    """Per covariate, stratum label -> mean of its present values (the fill)."""
+
+    def rows(self, stratum: np.ndarray, values: np.ndarray) -> np.ndarray:
+        """Unit-row covariates in the same form: missing values at their stratum's mean,
+        then the indicators of `gaps` (for the robust sandwich from the rows)."""
+        filled = values.copy()
+        for j, mean in enumerate(self.means):
+            missing = np.isnan(filled[:, j])
+            if missing.any():
+                filled[missing, j] = [mean[label] for label in stratum[missing].tolist()]
+        indicators = [np.isnan(values[:, j]).astype(float) for j in self.gaps]
+        return np.column_stack([filled, *indicators]) if indicators else filled
+
+
+def adjustment_inputs(data: GroupedData, outcome: str,
+                      strata: Iterable[Any]) -> AdjustmentInputs | None:
+    """The covariate adjustment inputs of `outcome` in the given (analysed) strata; None
+    without covariates.
+
+    Missing values follow the missing-indicator rule with mean fill: a covariate with gaps
+    among the outcome's rows is filled with its stratum's mean and joined by its indicator
+    (1 where missing), so every row stays in the fit. The query sums each covariate with a
+    missing value at its stratum's centre; the fill moves it to the mean by a per-stratum
+    linear map of the (covariate, indicator) sums, exact in the moments.
+    """
     roles = data.roles.covariates
     if not roles:
         return None
     v = data.roles.outcomes[data.outcomes.index(outcome)]
     g = data.groups
-    keep = g["stratum"].isin(list(strata)).to_numpy() & (g[f"n_{v}"].to_numpy() > 0)
-    k = len(roles)
-    sum_xx = np.zeros((int(keep.sum()), k, k))
+    labels = list(strata)
+    keep = g["stratum"].isin(labels).to_numpy() & (g[f"n_{v}"].to_numpy() > 0)
+    n_v = _column(data, f"n_{v}", keep)
+    gaps = tuple(j for j, x in enumerate(roles)
+                 if (n_v - _column(data, f"n_{v}_{x}", keep)).sum() > 0)
+    extended = list(roles) + [data.roles.indicators[j] for j in gaps]
+    m = len(extended)
+    sum_xx = np.zeros((int(keep.sum()), m, m))
+    for i, a in enumerate(extended):
+        for j in range(i, m):
+            sum_xx[:, i, j] = sum_xx[:, j, i] = _column(data, f"sum_{v}_{a}_{extended[j]}", keep)
+    sum_x = np.column_stack([_column(data, f"sum_{v}_{a}", keep) for a in extended])
+    sum_xy = np.column_stack([_column(data, f"sum_{v}_{v}_{a}", keep) for a in extended])
+    centre = np.column_stack([_column(data, f"centre_{a}", keep) for a in extended])
+    # each stratum's mean of every covariate over its present values, from all kept rows
+    by = g.groupby("stratum", sort=False)
+    means, shift = [], np.zeros((int(keep.sum()), len(roles)))
+    stratum = g["stratum"].to_numpy(dtype=object)[keep]
     for j, x in enumerate(roles):
-        for i, w in enumerate(roles[j:], start=j):
-            sum_xx[:, j, i] = sum_xx[:, i, j] = _column(data, f"sum_{v}_{x}_{w}", keep)
-    return AdjustmentMoments(
-        stratum=g["stratum"].to_numpy(dtype=object)[keep],
+        totals = by[[f"sum_{x}", f"n_{x}", f"centre_{x}"]].agg(
+            {f"sum_{x}": "sum", f"n_{x}": "sum", f"centre_{x}": "first"})
+        gap = (totals[f"sum_{x}"] / totals[f"n_{x}"].where(totals[f"n_{x}"] > 0)).fillna(0.0)
+        means.append(dict(zip(totals.index.tolist(),
+                              (gap + totals[f"centre_{x}"]).tolist(), strict=True)))
+        shift[:, j] = gap.reindex(stratum).to_numpy(dtype=float)
+    # move each filled value from the centre to the mean: x* = x + shift * indicator
+    T = np.repeat(np.eye(m)[None], len(stratum), axis=0)
+    for p, j in enumerate(gaps):
+        T[:, j, len(roles) + p] = shift[:, j]
+    sum_x = np.einsum("gij,gj->gi", T, sum_x)
+    sum_xy = np.einsum("gij,gj->gi", T, sum_xy)
+    sum_xx = np.einsum("gij,gjk,glk->gil", T, sum_xx, T)
+    names = tuple(data.spec.columns.covariates) + tuple(
+        f"{data.spec.columns.covariates[j]} missing" for j in gaps)
+    moments = AdjustmentMoments(
+        stratum=stratum,
         offer=g["offer"].to_numpy()[keep].astype(np.int64),
         take_up=g["take_up"].to_numpy()[keep].astype(np.int64),
-        n=_column(data, f"n_{v}", keep),
-        sum_y=_column(data, f"sum_{v}", keep), sum_yy=_column(data, f"sum_{v}_sq", keep),
-        centre_y=_column(data, f"centre_{v}", keep),
-        sum_x=np.column_stack([_column(data, f"sum_{v}_{x}", keep) for x in roles]),
-        sum_xy=np.column_stack([_column(data, f"sum_{v}_{v}_{x}", keep) for x in roles]),
-        sum_xx=sum_xx,
-        centre_x=np.column_stack([_column(data, f"centre_{x}", keep) for x in roles]),
+        n=n_v, sum_y=_column(data, f"sum_{v}", keep), sum_yy=_column(data, f"sum_{v}_sq", keep),
+        centre_y=_column(data, f"centre_{v}", keep), sum_x=sum_x, sum_xy=sum_xy, sum_xx=sum_xx,
+        centre_x=centre,
         cluster=g["cluster"].to_numpy(dtype=object)[keep] if "cluster" in g.columns else None,
     )
+    return AdjustmentInputs(moments, names, gaps, tuple(means))

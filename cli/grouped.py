@@ -174,7 +174,9 @@ class GroupedData:
 def _query(spec: Spec, roles: Roles) -> str:
     ranged = (roles.probability,) if roles.probability else ()
     return group_query(UNITS_VIEW, keys=roles.keys, centre_keys=roles.strata,
-                       outcomes=roles.outcomes, covariates=roles.covariates,
+                       outcomes=roles.outcomes,
+                       covariates=roles.covariates + roles.indicators,
+                       uncentred=roles.indicators,
                        counted=roles.flags, ranged=ranged, total="FSUM",
                        centre_rows=CENTRE_ROWS)
 
@@ -238,6 +240,7 @@ def _finish(spec: Spec, roles: Roles, frame: pd.DataFrame,
     cols = spec.columns
     if frame.empty:
         return None
+    frame = frame.copy()  # one block per type: an engine's result can arrive column by column
     for flag in roles.flags:
         if frame[flag].fillna(0).to_numpy().any():
             return None
@@ -331,6 +334,7 @@ def from_rows(spec: Spec, dataset: Dataset) -> GroupedData:
         units[role] = dataset.outcomes[name]
     for role, name in zip(roles.covariates, spec.columns.covariates, strict=True):
         units[role] = dataset.covariates[name]
+        units["m" + role[1:]] = np.isnan(dataset.covariates[name]).astype(float)
     if roles.probability:
         units["prob"] = dataset.offer_probability
         units["prob_missing"] = False

@@ -17,8 +17,10 @@ Columns (one row per group; rows with the same key are parts of one group and ar
   ``centre_x`` likewise over all rows of the group, and per pair ``x``, ``w`` (spec order)
   ``cross_x_w``, the sum of the products of the centred values, a missing value counting as
   its centre; per outcome ``y`` the same over the rows where ``y`` is present: ``n_y_x``,
-  ``sum_y_x``, ``sum_y_y_x`` (products with the centred outcome) and ``sum_y_x_w``. A table
-  without them runs everything except the covariate checks and adjustment.
+  ``sum_y_x``, ``sum_y_y_x`` (products with the centred outcome) and ``sum_y_x_w``; each
+  covariate ``x`` also has its missing indicator ``x_missing`` (1 where missing, not centred)
+  among these columns. A table without them runs everything except the covariate checks and
+  adjustment.
 
 Rows dropped for a missing offer, take-up or stratum and the row files' fingerprints are not
 in the table: a run on it records the table's own fingerprint and its rows as kept rows.
@@ -49,6 +51,13 @@ MOMENT_FIELDS = ("n_{}", "sum_{}", "sum_{}_sq", "centre_{}", "max_abs_{}")
 """Per-outcome columns of the table, formatted with the outcome's name."""
 COVARIATE_FIELDS = ("n_{}", "sum_{}", "sum_{}_sq", "centre_{}")
 """Per-covariate columns of the table (over all rows of the group)."""
+
+
+def _extended(names: tuple[str, ...], roles: Roles) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """Covariate names and view columns followed by their missing indicators
+    (``<name>_missing``)."""
+    return (tuple(names) + tuple(f"{n}_missing" for n in names),
+            tuple(roles.covariates) + roles.indicators)
 
 
 def _covariate_columns(names: tuple[str, ...], roles: tuple[str, ...],
@@ -100,7 +109,7 @@ def moment_sql(spec: Spec, table: str = "units") -> str:
 def _table(data: GroupedData) -> pd.DataFrame:
     spec, g = data.spec, data.groups
     cols = spec.columns
-    out = pd.DataFrame()
+    out: dict[str, np.ndarray | list] = {}  # one frame at the end, not column by column
     if data.stratum_parts:
         parts = [data.stratum_parts[label] for label in g["stratum"].tolist()]
         for i, name in enumerate(cols.stratum):
@@ -117,11 +126,11 @@ def _table(data: GroupedData) -> pd.DataFrame:
             values = g[field.format(role)]
             out[field.format(name)] = values.to_numpy(dtype=np.int64) if field == "n_{}" \
                 else values.to_numpy(dtype=float, na_value=np.nan)
-    for name, column in _covariate_columns(cols.covariates, data.roles.covariates, cols.outcome,
+    for name, column in _covariate_columns(*_extended(cols.covariates, data.roles), cols.outcome,
                                            data.roles.outcomes):
         out[name] = g[column].to_numpy(dtype=np.int64) if name.startswith("n_") \
             else g[column].to_numpy(dtype=float, na_value=np.nan)
-    return out
+    return pd.DataFrame(out)
 
 
 def write_moment_table(data: GroupedData, path: Path) -> Path:
@@ -213,7 +222,7 @@ def read_moment_table(spec: Spec) -> GroupedData:
     """
     cols = spec.columns
     roles = roles_of(spec)
-    covariates = _covariate_columns(cols.covariates, roles.covariates, cols.outcome,
+    covariates = _covariate_columns(*_extended(cols.covariates, roles), cols.outcome,
                                     roles.outcomes)
     pieces, files = [], []
     carried = True
@@ -222,7 +231,7 @@ def read_moment_table(spec: Spec) -> GroupedData:
         carried = carried and all(name in frame.columns for name, _ in covariates)
         wanted = _keys(spec) + ["n"] + [f.format(y) for y in cols.outcome for f in MOMENT_FIELDS]
         _need(frame, path, wanted, spec)
-        piece = pd.DataFrame()
+        piece: dict[str, np.ndarray] = {}  # one frame per file at the end
         for name in _keys(spec):
             column = frame[name].tolist()
             if name in (cols.offer, cols.take_up):
@@ -241,7 +250,7 @@ def read_moment_table(spec: Spec) -> GroupedData:
             for field in MOMENT_FIELDS:
                 piece[field.format(role)] = _numbers(frame, path, field.format(name),
                                                      whole=field == "n_{}")
-            over = np.flatnonzero(piece[f"n_{role}"].to_numpy() > piece["n"].to_numpy())
+            over = np.flatnonzero(piece[f"n_{role}"] > piece["n"])
             if over.size:
                 raise DataError(path, f"n_{name}", (int(over[0]) + 1,),
                                 f"row {int(over[0]) + 1} counts more rows with '{name}' than "
@@ -249,7 +258,7 @@ def read_moment_table(spec: Spec) -> GroupedData:
         for name, column in covariates:
             if name in frame.columns:
                 piece[column] = _numbers(frame, path, name, whole=name.startswith("n_"))
-        pieces.append(piece)
+        pieces.append(pd.DataFrame(piece))
         files.append(file_fingerprint(path, len(frame)))
     roles = Roles(strata=("s0",), outcomes=roles.outcomes,
                   covariates=roles.covariates if carried and covariates else (),
@@ -261,15 +270,17 @@ def read_moment_table(spec: Spec) -> GroupedData:
     groups = pd.DataFrame({"stratum": _integer_labels(labels) if len(texts) == 1 else labels,
                            "offer": table[cols.offer].astype(np.int64),
                            "take_up": table[cols.take_up].astype(np.int64)})
+    extra: dict[str, object] = {}
     if cols.cluster:
-        groups["cluster"] = table[cols.cluster].to_numpy(dtype=object)
-    groups["n"] = table["n"].astype(np.int64)
+        extra["cluster"] = table[cols.cluster].to_numpy(dtype=object)
+    extra["n"] = table["n"].astype(np.int64)
     for role in roles.outcomes:
         for field in MOMENT_FIELDS:
-            groups[field.format(role)] = table[field.format(role)]
+            extra[field.format(role)] = table[field.format(role)]
     if roles.covariates:
         for _, column in covariates:
-            groups[column] = table[column]
+            extra[column] = table[column]
+    groups = pd.concat([groups, pd.DataFrame(extra, index=groups.index)], axis=1)
     return GroupedData(spec=spec, files=tuple(files), groups=groups, roles=roles,
                        n_read=int(groups["n"].sum()), dropped=(), n_dropped=0,
                        stratum_parts={} if len(texts) == 1 else _label_parts(labels, texts),

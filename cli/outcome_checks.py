@@ -25,7 +25,7 @@ from strativ.estimators.sensitivity import (
 )
 
 from .cautions import variance_used
-from .covariate_data import ADJUSTED_VARIANCES, adjustment_moments
+from .covariate_data import ADJUSTED_VARIANCES, adjustment_inputs
 from .errors import DataError
 from .grouped import GroupedData
 from .spec import Spec
@@ -74,13 +74,14 @@ def adjusted_fits(spec: Spec, data: GroupedData, name: str, comparison: Any,
     sandwich (`strativ.estimators.adjust_robust`)."""
     variance = variance_used(spec)
     labels = [r.label for r in comparison.strata.rows]
-    moments = adjustment_moments(data, name, labels)
-    if moments is None:
+    inputs = adjustment_inputs(data, name, labels)
+    if inputs is None:
         return ()
-    rows = keep = None
+    rows = keep = covariates = None
     if variance not in ADJUSTED_VARIANCES:
         rows = outcome_rows(data, name)
         keep = pd.Series(rows.stratum, dtype=object).isin(labels).to_numpy()
+        covariates = inputs.rows(rows.stratum[keep], rows.covariates[keep])
     out = []
     for estimate in comparison.estimates:
         try:
@@ -88,12 +89,12 @@ def adjusted_fits(spec: Spec, data: GroupedData, name: str, comparison: Any,
             if rows is not None:
                 robust = robust_adjusted(
                     rows.outcome[keep], rows.take_up[keep], rows.offer[keep], rows.stratum[keep],
-                    rows.covariates[keep], estimator=estimate.estimator,
+                    covariates, estimator=estimate.estimator,
                     scaled=variance == "robust_scaled",
                     cluster=None if rows.cluster is None else rows.cluster[keep],
                     probability=mapping)
             out.append(fit_adjusted(
-                moments, estimate.estimator, tuple(spec.columns.covariates), variance=variance,
+                inputs.moments, estimate.estimator, inputs.names, variance=variance,
                 assignment=spec.assignment, sampling=spec.sampling, level=spec.level,
                 offer_probability=mapping, unadjusted_std_error=estimate.std_error,
                 robust=robust))

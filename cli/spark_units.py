@@ -113,7 +113,9 @@ def spark_group_frame(spec: Spec, centre_rows: int | None) -> tuple[Roles, pd.Da
             views.append(UNITS_VIEW)
             ranged = (roles.probability,) if roles.probability else ()
             sql = group_query(UNITS_VIEW, keys=roles.keys, centre_keys=roles.strata,
-                              outcomes=roles.outcomes, covariates=roles.covariates,
+                              outcomes=roles.outcomes,
+                              covariates=roles.covariates + roles.indicators,
+                              uncentred=roles.indicators,
                               counted=roles.flags, ranged=ranged,
                               total="SUM", centre_rows=centre_rows)
             return roles, session.sql(sql).toPandas()

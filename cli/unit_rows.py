@@ -31,20 +31,7 @@ class OutcomeRows:
     stratum: np.ndarray
     cluster: np.ndarray | None
     covariates: np.ndarray | None = None
-    """(n, k) covariate values, a missing value set to its stratum's centre (as in the
-    group moments); None without covariates."""
-
-
-def _filled(data: GroupedData, stratum: np.ndarray, values: np.ndarray) -> np.ndarray:
-    """Covariates with each missing value set to its stratum's centre in the group moments."""
-    g = data.groups
-    out = values.copy()
-    for j, role in enumerate(data.roles.covariates):
-        centre = dict(zip(g["stratum"].tolist(), g[f"centre_{role}"].tolist(), strict=True))
-        gaps = np.isnan(out[:, j])
-        if gaps.any():
-            out[gaps, j] = [centre[label] for label in stratum[gaps].tolist()]
-    return out
+    """(n, k) covariate values, NaN where missing; None without covariates."""
 
 
 def _from_dataset(data: GroupedData, name: str) -> OutcomeRows:
@@ -54,7 +41,7 @@ def _from_dataset(data: GroupedData, name: str) -> OutcomeRows:
     covariates = None
     if data.roles.covariates:
         raw = np.column_stack([rows.covariates[c][keep] for c in data.spec.columns.covariates])
-        covariates = _filled(data, rows.stratum[keep], raw)
+        covariates = raw
     return OutcomeRows(y[keep], rows.take_up[keep], rows.offer[keep], rows.stratum[keep],
                        None if rows.cluster is None else rows.cluster[keep], covariates)
 
@@ -104,7 +91,6 @@ def outcome_rows(data: GroupedData, name: str) -> OutcomeRows:
     stratum = frame["stratum_label"].to_numpy(dtype=object)
     covariates = None
     if data.roles.covariates:
-        raw = frame[list(data.roles.covariates)].to_numpy(dtype=float, na_value=np.nan)
-        covariates = _filled(data, stratum, raw)
+        covariates = frame[list(data.roles.covariates)].to_numpy(dtype=float, na_value=np.nan)
     return OutcomeRows(frame[y].to_numpy(dtype=float), frame["take_up"].to_numpy(dtype=float),
                        frame["offer"].to_numpy(dtype=np.int64), stratum, cluster, covariates)

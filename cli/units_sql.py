@@ -7,7 +7,8 @@ and Excel files (`foreign.read_foreign`). Each role becomes one column of the vi
 - offer and take-up: 1/0 from any number equal to 1 or 0 or from true/false; NULL where
   missing; 2 for any other value (the run then asks the row reader for the message);
 - outcomes, covariates and a probability column: DOUBLE, NULL where missing, with a flag
-  column ``bad_<name>`` = 1 where a value is present but not a finite plain number;
+  column ``bad_<name>`` = 1 where a value is present but not a finite plain number; per
+  covariate ``x<i>`` also ``m<i>``, 1.0 where it is missing (for the missing-indicator rule);
 - stratum parts and cluster: the value as read (CSV: the text as written), NULL where
   missing; the labels are made from the few distinct values in Python, by the row reader's
   rule.
@@ -69,6 +70,11 @@ class Roles:
         if self.probability:
             out.append("prob_missing")
         return tuple(out)
+
+    @property
+    def indicators(self) -> tuple[str, ...]:
+        """Per covariate, the view column that is 1 where it is missing (``m0``, ``m1``, ...)."""
+        return tuple("m" + c[1:] for c in self.covariates)
 
     @property
     def flags(self) -> tuple[str, ...]:
@@ -324,6 +330,9 @@ def file_select(index: int, view: str, kinds: dict[str, str], spec: Spec,
     for column, role in numeric:
         value, bad = _number(d.q(column), kinds[column], d, read.decimal)
         parts += [f"{value} AS {role}", f"{bad} AS bad_{role}"]
+        if role in roles.covariates:
+            parts.append(f"CASE WHEN ({value}) IS NULL THEN 1.0 ELSE 0.0 END AS "
+                         f"m{role[1:]}")
     if roles.probability:
         value, _ = _number(d.q(spec.offer_probability.column),
                            kinds[spec.offer_probability.column], d, read.decimal)

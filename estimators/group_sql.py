@@ -132,6 +132,7 @@ def group_query(
     ranged: Sequence[str] = (),
     total: str = "SUM",
     centre_rows: int | None = None,
+    uncentred: Sequence[str] = (),
 ) -> str:
     """The SQL text of the one GROUP BY that summarises a run's rows.
 
@@ -153,6 +154,9 @@ def group_query(
         Take each stratum's centre from the first `centre_rows` rows only (strata absent
         from them use the smallest value among those rows, or 0), so the source is scanned
         once instead of twice. None (default): the smallest value of the whole stratum.
+    uncentred : sequence of str, default=()
+        Covariates summed as they are (centre 0), for example 0/1 indicators, whose sums
+        then read directly as counts.
 
     Returns
     -------
@@ -181,8 +185,11 @@ def group_query(
         raise InputError("centre_rows", f"expected a positive whole number, got {centre_rows!r}.")
     table = _source_name(source)
     centred = _quote("strativ_centred")
+    if not set(uncentred) <= set(covariates):
+        raise InputError("uncentred", "only covariates can be left uncentred.")
     if outcomes or covariates:
-        prefix = _centring(table, centre_keys, [*outcomes, *covariates], centre_rows)
+        prefix = _centring(table, centre_keys, [*outcomes, *covariates], centre_rows,
+                           set(uncentred))
         body = centred
     else:
         prefix, body = "", table
@@ -195,9 +202,11 @@ def group_query(
     return f"{prefix}SELECT\n    {groups},\n{sums}\nFROM {body}\nGROUP BY {groups}\n"
 
 
-def _centring(table: str, centre_keys: Sequence[str], outcomes: Sequence[str],
-              centre_rows: int | None) -> str:
-    """The common table expressions that centre each outcome within its stratum."""
+def _centring(table: str, centre_keys: Sequence[str], variables: Sequence[str],
+              centre_rows: int | None, fixed: set[str]) -> str:
+    """The common table expressions that centre each variable within its stratum (those in
+    `fixed` at 0)."""
+    outcomes = [v for v in variables if v not in fixed]
     centres, centred = _quote("strativ_centres"), _quote("strativ_centred")
     by = ", ".join(_quote(k) for k in centre_keys)
     centre_select = ",\n".join(
@@ -222,7 +231,8 @@ def _centring(table: str, centre_keys: Sequence[str], outcomes: Sequence[str],
         joins = f"  LEFT JOIN {centres} AS c ON {join}\n  CROSS JOIN {overall} AS o\n"
         centre_of = {v: f"COALESCE(c.{_quote('centre_' + v)}, o.{_quote('overall_' + v)}, "
                         "CAST(0 AS DOUBLE))" for v in outcomes}
-    for v in outcomes:
+    centre_of.update(dict.fromkeys(fixed, "CAST(0 AS DOUBLE)"))
+    for v in variables:
         row_lines += [f"    r.{_quote(v)} - {centre_of[v]} AS {_quote('centred_' + v)}",
                       f"    {centre_of[v]} AS {_quote('centre_' + v)}"]
     rows = ",\n".join(row_lines)

@@ -95,18 +95,37 @@ def test_robust_variance_with_covariates_equals_the_regression_sandwich(
     assert doc["covariates"]["covariates"][0]["covariate"] == "age"
 
 
-def test_a_covariate_with_gaps_is_counted_and_still_adjusts(study: Study, invoke) -> None:
+@pytest.mark.parametrize("variance", ["stratified", "robust"])
+def test_a_covariate_with_gaps_follows_the_indicator_rule(study: Study, invoke,
+                                                           variance: str) -> None:
     rows = study_rows()
-    for i in (3, 17, 40):
+    for i in (3, 17, 30, 41, 52):
         rows[i]["age"] = ""
-    _study(study, rows)
+    _study(study, rows, f"inference:\n  variance: {variance}\n")
     done = invoke("run", study.spec, "--out", study.out)
     assert done.exit_code == 0, done.stderr
     doc = study.results()
-    # by construction: three ages blanked above
-    assert any("covariate 'age' is missing in 3 of" in w for w in doc["warnings"])
-    assert len(doc["adjusted_estimates"]) == 3
-    assert doc["covariates"]["covariates"][0]["n_present"] == len(rows) - 3
+    # by construction: five ages blanked above
+    assert any("covariate 'age' is missing in 5 of" in w for w in doc["warnings"])
+    assert doc["covariates"]["covariates"][0]["n_present"] == len(rows) - 5
+    frame = pd.DataFrame(rows)
+    age = pd.to_numeric(frame["age"], errors="coerce")
+    filled = age.fillna(age.groupby(frame["site"]).transform("mean"))
+    dummies = pd.get_dummies(frame["site"], dtype=float)
+    controls = pd.concat([dummies, filled.rename("age"),
+                          age.isna().astype(float).rename("age_missing")], axis=1)
+    reference = IV2SLS(frame["y"].astype(float), controls, frame["take_up"].astype(float),
+                       frame["offer"].astype(float)).fit(cov_type="robust", debiased=False)
+    got = next(a for a in doc["adjusted_estimates"] if a["estimator"] == "fixed_effects")
+    # reference: linearmodels IV2SLS with the stratum-mean fill and a missing indicator
+    assert got["fit"]["estimate"] == pytest.approx(reference.params["take_up"], rel=1e-10)
+    assert list(got["slopes"]) == ["age", "age missing"]
+    assert got["slopes"]["age missing"] == pytest.approx(reference.params["age_missing"],
+                                                         rel=1e-8, abs=1e-10)
+    if variance == "robust":
+        # reference: the same regression's robust standard error
+        assert got["fit"]["std_error"] == pytest.approx(reference.std_errors["take_up"],
+                                                        rel=1e-8)
 
 
 def test_a_constant_covariate_is_refused_by_name(study: Study, invoke) -> None:
