@@ -20,29 +20,31 @@ SEED = 20261203
 
 def _moments(frame: pd.DataFrame, names: list[str]) -> dict:
     """Group moments of unit rows, written here independently of the engines' query: each
-    covariate centred on its stratum's first value, a missing value counted as the centre."""
-    frame = frame.copy()
-    for x in names:
-        frame["c_" + x] = frame.groupby("s")[x].transform(lambda v: v.dropna().iloc[0])
-        frame["d_" + x] = (frame[x] - frame["c_" + x]).fillna(0.0)
-    groups = list(frame.groupby(["s", "z", "d"], sort=True))
-    k = len(names)
-    out = {"stratum": [], "offer": [], "take_up": [], "n": [],
-           "n_x": np.zeros((len(groups), k)), "sum_x": np.zeros((len(groups), k)),
-           "sum_x_sq": np.zeros((len(groups), k)), "centre_x": np.zeros((len(groups), k)),
-           "cross": np.zeros((len(groups), k, k))}
-    for g, ((s, z, d), rows) in enumerate(groups):
-        out["stratum"].append(s)
-        out["offer"].append(z)
-        out["take_up"].append(d)
-        out["n"].append(len(rows))
-        dev = rows[["d_" + x for x in names]].to_numpy()
-        out["n_x"][g] = rows[names].notna().sum().to_numpy()
-        out["sum_x"][g] = dev.sum(axis=0)
-        out["sum_x_sq"][g] = (dev**2).sum(axis=0)
-        out["centre_x"][g] = rows[["c_" + x for x in names]].iloc[0].to_numpy()
-        out["cross"][g] = dev.T @ dev
-    return out
+    covariate centred on its stratum's first present value, a missing value counted as the
+    centre."""
+    s_codes, _ = pd.factorize(frame["s"], sort=True)
+    key = (s_codes * 2 + frame["z"].to_numpy()) * 2 + frame["d"].to_numpy()
+    groups, index = np.unique(key, return_inverse=True)
+    G, k = groups.size, len(names)
+    values = frame[names].to_numpy(dtype=float)
+    first = frame.groupby("s", sort=True)[names].first().to_numpy(dtype=float)  # skips NaN
+    centre = first[s_codes]
+    dev = np.nan_to_num(values - centre, nan=0.0)
+
+    def total(v):
+        return np.bincount(index, weights=v, minlength=G)
+
+    labels = np.array(sorted(frame["s"].unique()), dtype=object)
+    return {
+        "stratum": list(labels[groups // 4]), "offer": (groups // 2) % 2,
+        "take_up": groups % 2, "n": np.bincount(index, minlength=G),
+        "n_x": np.column_stack([total(~np.isnan(values[:, j])) for j in range(k)]),
+        "sum_x": np.column_stack([total(dev[:, j]) for j in range(k)]),
+        "sum_x_sq": np.column_stack([total(dev[:, j] ** 2) for j in range(k)]),
+        "centre_x": first[groups // 4],
+        "cross": np.stack([np.stack([total(dev[:, j] * dev[:, i]) for i in range(k)], axis=1)
+                           for j in range(k)], axis=1),
+    }
 
 
 def _profile(frame: pd.DataFrame, names: list[str], **kwargs):
