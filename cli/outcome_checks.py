@@ -14,9 +14,12 @@ from strativ.estimators import Comparison, Estimate, EstimatorError, cells_from_
 from strativ.estimators.adjust import AdjustedEstimate, fit_adjusted
 from strativ.estimators.adjust_robust import robust_adjusted
 from strativ.estimators.randomization import (
+    RandomizationFamily,
     RandomizationTest,
     randomization_draws,
+    randomization_family,
     randomization_test,
+    westfall_young,
 )
 from strativ.estimators.sensitivity import (
     DirectEffectSensitivity,
@@ -31,7 +34,7 @@ from .grouped import GroupedData
 from .spec import Spec
 from .unit_rows import outcome_rows
 
-__all__ = ["adjusted_fits", "direct_effect", "randomization"]
+__all__ = ["adjusted_fits", "direct_effect", "randomization", "randomization_family_test"]
 
 
 def randomization(spec: Spec, data: GroupedData, name: str,
@@ -104,3 +107,27 @@ def adjusted_fits(spec: Spec, data: GroupedData, name: str, comparison: Any,
                             "the covariates are named under 'columns: covariates:' in "
                             f"{spec.path.name}") from None
     return tuple(out)
+
+
+def randomization_family_test(spec: Spec, data: GroupedData,
+                              progress: Any = None) -> RandomizationFamily | None:
+    """Westfall-Young adjusted randomization p-values across the outcomes, from one set of
+    re-draws over the rows that have every outcome (None with one outcome or when
+    randomization inference is off)."""
+    if spec.randomization is None or len(data.outcomes) < 2:
+        return None
+    draws, seed, null_effect = spec.randomization
+    rows = outcome_rows(data, list(data.outcomes))
+    try:
+        family = randomization_family(rows.outcome, rows.take_up, rows.offer, rows.stratum,
+                                      cluster=rows.cluster, draws=draws, seed=seed,
+                                      progress=progress)
+    except EstimatorError as exc:
+        raise DataError(None, None, (), f"randomization inference across outcomes: "
+                        f"{getattr(exc, 'message', exc)}") from None
+    nulls = (null_effect,) * len(family)
+    raw = tuple(randomization_test(f, null_effect=null_effect).p_value for f in family)
+    return RandomizationFamily(tuple(data.outcomes), int(rows.outcome.shape[0]), raw,
+                               westfall_young(family, nulls), family[0].a.size,
+                               family[0].exact, None if family[0].exact else seed,
+                               null_effect)

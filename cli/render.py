@@ -337,6 +337,14 @@ def _families(console: Console, run: Run) -> None:
                        _col("\n\nHolm", map(_p_text, values.holm)),
                        _col("\n\nBH", map(_p_text, values.benjamini_hochberg))])
     _print_table(console, _col("outcome", run.families[0].outcomes), blocks)
+    ri = run.randomization_family
+    if ri is not None:
+        console.print()
+        console.print(f"randomization p-values on the {ri.rows:,} rows with every outcome, "
+                      "and Westfall-Young adjusted from the same re-draws:")
+        _print_table(console, _col("outcome", ri.outcomes), [
+            [_col("p", map(_p_text, ri.p_value)),
+             _col("Westfall-\nYoung", map(_p_text, ri.westfall_young))]])
 
 
 def render_run(console: Console, run: Run) -> None:

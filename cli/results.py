@@ -243,6 +243,8 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
                                                           **a.fit.to_dict()}}
             for r in run.outcomes for a in r.adjusted],
         "multiple_outcomes": [f.to_dict() for f in run.families],
+        "randomization_outcomes": None if run.randomization_family is None
+        else run.randomization_family.to_dict(),
         "warnings": list(run.warnings),
     }
 

@@ -27,6 +27,7 @@ from strativ.estimators.adjust import AdjustedEstimate
 from strativ.estimators.attrition import AttritionTest, attrition_test
 from strativ.estimators.profile import CovariateProfile
 from strativ.estimators.randomization import (
+    RandomizationFamily,
     RandomizationTest,
 )
 from strativ.estimators.sensitivity import (
@@ -46,7 +47,12 @@ from .errors import DataError
 from .grouped import GroupedData, from_rows
 from .loading import Dataset
 from .multiplicity import OutcomeFamily, outcome_families
-from .outcome_checks import adjusted_fits, direct_effect, randomization
+from .outcome_checks import (
+    adjusted_fits,
+    direct_effect,
+    randomization,
+    randomization_family_test,
+)
 from .spec import Spec, suggest
 
 __all__ = [
@@ -128,6 +134,9 @@ class Run:
     families: tuple[OutcomeFamily, ...] = ()
     """p-values across outcomes, per estimator, with Holm and Benjamini-Hochberg (two or
     more outcomes)."""
+    randomization_family: RandomizationFamily | None = None
+    """Westfall-Young adjusted randomization p-values across the outcomes (randomization
+    inference with two or more outcomes)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -440,4 +449,5 @@ def run_spec(spec: Spec, data: GroupedData | Dataset, progress: Any = None) -> R
     profile = run_profile(data, probabilities)
     return Run(spec, data, probabilities, tuple(results),
                tuple(data_warnings(spec, data) + fit_warnings(results)
-                     + balance_warnings(profile)), profile, outcome_families(results))
+                     + balance_warnings(profile)), profile, outcome_families(results),
+               randomization_family_test(spec, data, progress))

@@ -34,10 +34,11 @@ class OutcomeRows:
     """(n, k) covariate values, NaN where missing; None without covariates."""
 
 
-def _from_dataset(data: GroupedData, name: str) -> OutcomeRows:
+def _from_dataset(data: GroupedData, names: list[str]) -> OutcomeRows:
     rows = data.rows()
-    y = rows.outcomes[name]
-    keep = ~np.isnan(y)
+    y = np.column_stack([rows.outcomes[n] for n in names])
+    keep = ~np.isnan(y).any(axis=1)
+    y = y[:, 0] if len(names) == 1 else y
     covariates = None
     if data.roles.covariates:
         raw = np.column_stack([rows.covariates[c][keep] for c in data.spec.columns.covariates])
@@ -46,8 +47,10 @@ def _from_dataset(data: GroupedData, name: str) -> OutcomeRows:
                        None if rows.cluster is None else rows.cluster[keep], covariates)
 
 
-def outcome_rows(data: GroupedData, name: str) -> OutcomeRows:
+def outcome_rows(data: GroupedData, name: str | list[str]) -> OutcomeRows:
     """The kept rows with outcome `name`, read again by DuckDB (or taken from the row reader).
+
+    With a list of outcomes: the rows that have all of them, the outcome an (n, m) array.
 
     Raises
     ------
@@ -58,20 +61,22 @@ def outcome_rows(data: GroupedData, name: str) -> OutcomeRows:
         raise DataError(None, None, (), "randomization inference re-draws the offers of the "
                         "unit rows, and the run reads a moment table",
                         "run the same spec on the row data (data: instead of moments:)")
+    names = [name] if isinstance(name, str) else list(name)
     if data.dataset is not None:
-        return _from_dataset(data, name)
+        return _from_dataset(data, names)
     import duckdb
 
     spec = data.spec
     connection = duckdb.connect()
     try:
         roles = units_view(connection, spec)
-        y = roles.outcomes[data.outcomes.index(name)]
+        ys = [roles.outcomes[data.outcomes.index(n)] for n in names]
         parts = list(roles.strata)
-        wanted = ["file", *parts, "offer", "take_up", y] + (["cluster"] if roles.cluster else [])
+        wanted = ["file", *parts, "offer", "take_up", *ys] + \
+            (["cluster"] if roles.cluster else [])
         wanted += list(data.roles.covariates)
         complete = " AND ".join(f"{c} IS NOT NULL" for c in
-                                [*parts, "offer", "take_up", y]
+                                [*parts, "offer", "take_up", *ys]
                                 + (["cluster"] if roles.cluster else []))
         if roles.probability:
             complete += " AND NOT prob_missing"
@@ -92,5 +97,6 @@ def outcome_rows(data: GroupedData, name: str) -> OutcomeRows:
     covariates = None
     if data.roles.covariates:
         covariates = frame[list(data.roles.covariates)].to_numpy(dtype=float, na_value=np.nan)
-    return OutcomeRows(frame[y].to_numpy(dtype=float), frame["take_up"].to_numpy(dtype=float),
+    y = frame[ys].to_numpy(dtype=float)
+    return OutcomeRows(y[:, 0] if len(ys) == 1 else y, frame["take_up"].to_numpy(dtype=float),
                        frame["offer"].to_numpy(dtype=np.int64), stratum, cluster, covariates)

@@ -28,8 +28,8 @@ import pandas as pd
 
 from .errors import InputError
 
-__all__ = ["RandomizationDraws", "RandomizationTest", "randomization_draws",
-           "randomization_test"]
+__all__ = ["RandomizationDraws", "RandomizationFamily", "RandomizationTest", "randomization_draws",
+           "randomization_family", "randomization_test", "westfall_young"]
 
 
 
@@ -78,6 +78,36 @@ class RandomizationTest:
         return out
 
 
+@dataclass(frozen=True, slots=True)
+class RandomizationFamily:
+    """Randomization p-values of several outcomes from the same re-draws, with the
+    Westfall–Young step-down adjustment."""
+
+    outcomes: tuple[str, ...]
+    """Outcome names."""
+    rows: int
+    """Rows with every outcome (the re-drawn units)."""
+    p_value: tuple[float, ...]
+    """Each outcome's randomization p-value on these rows."""
+    westfall_young: tuple[float, ...]
+    """Adjusted p-values (family-wise error rate, keeping the outcomes' dependence)."""
+    draws: int
+    """Re-draws (assignments when enumerated)."""
+    exact: bool
+    """Whether every assignment was enumerated."""
+    seed: int | None
+    """Seed of the re-draws."""
+    null_effect: float
+    """θ0 of the sharp null, for every outcome."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the JSON form."""
+        out = {name: getattr(self, name) for name in self.__slots__}
+        for key in ("outcomes", "p_value", "westfall_young"):
+            out[key] = list(out[key])
+        return out
+
+
 def _groups(stratum: Any, cluster: Any, n_units: int) -> tuple[np.ndarray, np.ndarray]:
     codes, _ = pd.factorize(pd.Series(list(stratum), dtype=object), sort=True)
     if cluster is None:
@@ -122,14 +152,52 @@ def randomization_draws(
     InputError
         When a cluster spans strata or arms, or no stratum has both arms.
     """
-    y = np.asarray(outcome, dtype=float)
+    return _draws(np.asarray(outcome, dtype=float)[:, None], take_up, offer, stratum,
+                  cluster, draws, seed, progress)[0]
+
+
+def randomization_family(
+    outcomes: Any,
+    take_up: Any,
+    offer: Any,
+    stratum: Any,
+    *,
+    cluster: Any = None,
+    draws: int = 2000,
+    seed: int = 20261203,
+    progress: Callable[[int, int], None] | None = None,
+) -> tuple[RandomizationDraws, ...]:
+    """`randomization_draws` for several outcomes of the same rows, from the same re-draws
+    (what a joint adjustment across outcomes needs).
+
+    Parameters
+    ----------
+    outcomes : array_like, shape (n, m)
+        One column per outcome, no missing values.
+    take_up, offer, stratum, cluster, draws, seed, progress
+        As in `randomization_draws`.
+
+    Returns
+    -------
+    tuple of RandomizationDraws
+        One per outcome; B and the assignments are shared.
+    """
+    return _draws(np.asarray(outcomes, dtype=float), take_up, offer, stratum, cluster, draws,
+                  seed, progress)
+
+
+def _draws(Y: np.ndarray, take_up: Any, offer: Any, stratum: Any, cluster: Any, draws: int,
+           seed: int, progress: Callable[[int, int], None] | None
+           ) -> tuple[RandomizationDraws, ...]:
     d = np.asarray(take_up, dtype=float)
     z = np.asarray(offer, dtype=np.int64)
-    codes, units = _groups(stratum, cluster, y.size)
+    codes, units = _groups(stratum, cluster, Y.shape[0])
+    m_out = Y.shape[1]
     # aggregate to the unit of assignment: sums of y, d and the count per cluster
     g = units.max() + 1
     size = np.bincount(units, minlength=g).astype(float)
-    sum_y = np.bincount(units, weights=y, minlength=g)
+    sum_y = np.column_stack([np.bincount(units, weights=Y[:, j], minlength=g)
+                             for j in range(m_out)])
     sum_d = np.bincount(units, weights=d, minlength=g)
     g_stratum = np.zeros(g, dtype=np.int64)
     g_stratum[units] = codes
@@ -146,20 +214,13 @@ def randomization_draws(
         raise InputError("offer", "no stratum has both offered and not-offered units.")
     stratum_size = np.bincount(codes, minlength=k).astype(float)
     weight = stratum_size[kept] / stratum_size[kept].sum()
+    values = np.column_stack([sum_y, sum_d, size])  # y columns, then d, then size
 
     def contrasts(assign: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """(A, B) for assignments `assign` (R, g) of 0/1 per assignment unit."""
-        a = np.zeros(assign.shape[0])
-        b = np.zeros(assign.shape[0])
-        for w, s in zip(weight, kept, strict=True):
-            m = members[s]
-            on = assign[:, m].astype(float)
-            n1 = on @ size[m]
-            n0 = size[m].sum() - n1
-            y1, d1 = on @ sum_y[m], on @ sum_d[m]
-            a += w * (y1 / n1 - (sum_y[m].sum() - y1) / n0)
-            b += w * (d1 / n1 - (sum_d[m].sum() - d1) / n0)
-        return a, b
+        """(A (R, m), B (R,)) for assignments `assign` (R, g) of 0/1 per assignment unit."""
+        sums = np.stack([assign[:, members[s]].astype(float) @ values[members[s]]
+                         for s in kept], axis=1)
+        return _contrasts_from_sums(sums, members, kept, weight, values)
 
     observed = contrasts(g_offer[None, :])
     # the number of assignments, on a log scale first (it can have thousands of digits)
@@ -167,7 +228,8 @@ def randomization_draws(
                     - math.lgamma(members[s].size - offered[s] + 1) for s in kept)
     total = math.prod(math.comb(members[s].size, offered[s]) for s in kept) \
         if log_total < math.log(draws) + 1 else draws + 1
-    if total <= draws:
+    exact = total <= draws
+    if exact:
         choices = [list(itertools.combinations(range(members[s].size), offered[s]))
                    for s in kept]
         assign = np.zeros((total, g), dtype=np.int8)
@@ -175,33 +237,32 @@ def randomization_draws(
             for s, pick in zip(kept, picks, strict=True):
                 assign[r, members[s][list(pick)]] = 1
         a, b = contrasts(assign)
-        return RandomizationDraws((float(observed[0][0]), float(observed[1][0])), a, b, True,
-                                  None)
-    sums = _offered_sums(members, kept, offered, np.column_stack([sum_y, sum_d, size]),
-                         draws, seed, progress)
-    a_all, b_all = _contrasts_from_sums(sums, members, kept, weight, sum_y, sum_d, size)
-    return RandomizationDraws((float(observed[0][0]), float(observed[1][0])), a_all, b_all,
-                              False, seed)
+    else:
+        sums = _offered_sums(members, kept, offered, values, draws, seed, progress)
+        a, b = _contrasts_from_sums(sums, members, kept, weight, values)
+    return tuple(RandomizationDraws((float(observed[0][0, j]), float(observed[1][0])),
+                                    a[:, j], b, exact, None if exact else seed)
+                 for j in range(m_out))
 
 
 def _contrasts_from_sums(sums: np.ndarray, members: list[np.ndarray], kept: list[int],
-                         weight: np.ndarray, sum_y: np.ndarray, sum_d: np.ndarray,
-                         size: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(A, B) per draw from the offered arm's sums (draws, strata, [y, d, size])."""
-    totals = np.array([[sum_y[members[s]].sum(), sum_d[members[s]].sum(), size[members[s]].sum()]
-                       for s in kept])
-    n1 = sums[:, :, 2]
-    n0 = totals[None, :, 2] - n1
-    a = ((sums[:, :, 0] / n1 - (totals[None, :, 0] - sums[:, :, 0]) / n0) * weight).sum(axis=1)
-    b = ((sums[:, :, 1] / n1 - (totals[None, :, 1] - sums[:, :, 1]) / n0) * weight).sum(axis=1)
-    return a, b
+                         weight: np.ndarray, values: np.ndarray
+                         ) -> tuple[np.ndarray, np.ndarray]:
+    """(A (R, m), B (R,)) from the offered arm's sums (R, strata, [y..., d, size])."""
+    totals = np.array([values[members[s]].sum(axis=0) for s in kept])  # (strata, C)
+    n1 = sums[:, :, -1]
+    n0 = totals[None, :, -1] - n1
+    rest = totals[None] - sums
+    means = sums[:, :, :-1] / n1[:, :, None] - rest[:, :, :-1] / n0[:, :, None]
+    contrast = (means * weight[None, :, None]).sum(axis=1)  # (R, m + 1)
+    return contrast[:, :-1], contrast[:, -1]
 
 
 def _offered_sums(members: list[np.ndarray], kept: list[int], offered: list[int],
                   values: np.ndarray, draws: int, seed: int,
                   progress: Callable[[int, int], None] | None) -> np.ndarray:
-    """Sums of `values` (y, d, size per assignment unit) over a uniformly random offered set
-    of each kept stratum's size, per draw: (draws, strata, 3).
+    """Sums of `values` (columns per assignment unit: outcomes, d, size) over a uniformly random
+    offered set of each kept stratum's size, per draw: (draws, strata, columns).
 
     Each draw picks the smaller arm of every stratum by a partial Fisher-Yates shuffle of
     the stratum's units (uniform whatever order the buffer is left in), so a draw costs the
@@ -215,7 +276,7 @@ def _offered_sums(members: list[np.ndarray], kept: list[int], offered: list[int]
     take = np.where(flip, sizes - picks, picks)
     ordered = values[order]
     totals = np.add.reduceat(ordered, starts, axis=0)
-    out = np.empty((draws, len(kept), 3))
+    out = np.empty((draws, len(kept), values.shape[1]))
     block = max(1, min(draws, 500))
     for start in range(0, draws, block):
         r = min(block, draws - start)
@@ -223,7 +284,7 @@ def _offered_sums(members: list[np.ndarray], kept: list[int], offered: list[int]
             part = _subset_sums(ordered, starts, sizes, take, r, seed + start)
         else:  # pragma: no cover - numba is a declared dependency
             rng = np.random.default_rng([seed, start])
-            part = np.empty((r, len(kept), 3))
+            part = np.empty((r, len(kept), values.shape[1]))
             for j in range(len(kept)):
                 chunk = ordered[starts[j]:starts[j] + sizes[j]]
                 keys = rng.random((r, sizes[j]))
@@ -249,16 +310,14 @@ try:  # numba is a declared dependency (see kernels.py)
         if state == 0:
             state = numba.uint64(1)
         scale = 1.0 / 9007199254740992.0  # 2**-53
-        # one contiguous column per value, swapped in place: each stratum stays contiguous
-        ys = ordered[:, 0].copy()
-        ds = ordered[:, 1].copy()
-        ns = ordered[:, 2].copy()
+        # rows swapped in place: each stratum stays contiguous
+        buffer = ordered.copy()
+        columns = ordered.shape[1]
+        acc = np.zeros(columns)
         for r in range(first, first + draws):
             for j in range(starts.size):
                 base, n = starts[j], sizes[j]
-                total_y = 0.0
-                total_d = 0.0
-                total_n = 0.0
+                acc[:] = 0.0
                 for i in range(take[j]):
                     state ^= state >> numba.uint64(12)
                     state ^= state << numba.uint64(25)
@@ -266,21 +325,19 @@ try:  # numba is a declared dependency (see kernels.py)
                     u = ((state * numba.uint64(0x2545F4914F6CDD1D)) >> numba.uint64(11)) * scale
                     here = base + i
                     pick = here + numba.int64(u * (n - i))
-                    y, d, m = ys[pick], ds[pick], ns[pick]
-                    ys[pick], ds[pick], ns[pick] = ys[here], ds[here], ns[here]
-                    ys[here], ds[here], ns[here] = y, d, m
-                    total_y += y
-                    total_d += d
-                    total_n += m
-                out[r, j, 0] = total_y
-                out[r, j, 1] = total_d
-                out[r, j, 2] = total_n
+                    for c in range(columns):
+                        held = buffer[pick, c]
+                        buffer[pick, c] = buffer[here, c]
+                        buffer[here, c] = held
+                        acc[c] += held
+                for c in range(columns):
+                    out[r, j, c] = acc[c]
 
     @numba.njit(cache=False, parallel=True)
     def _subset_sums(ordered, starts, sizes, take, draws, seed):  # pragma: no cover - compiled
         # a fixed number of independent streams, whatever the number of threads, so that a
         # seed gives the same draws on every machine
-        out = np.zeros((draws, starts.size, 3))
+        out = np.zeros((draws, starts.size, ordered.shape[1]))
         per = (draws + _STREAMS - 1) // _STREAMS
         for stream in numba.prange(_STREAMS):
             first = stream * per
@@ -363,3 +420,52 @@ def randomization_test(draws: RandomizationDraws, *, null_effect: float = 0.0,
                              "spans them"
     return RandomizationTest(float(null_effect), _p_value(draws, null_effect), interval,
                              reason, int(draws.a.size), draws.exact, draws.seed, float(level))
+
+
+def westfall_young(family: tuple[RandomizationDraws, ...],
+                   null_effects: tuple[float, ...] | None = None) -> tuple[float, ...]:
+    """Westfall–Young step-down (minP) adjusted p-values across the outcomes of one family.
+
+    Each outcome's statistic ``|A − θ0 B|`` is compared with its own re-draws; in every draw,
+    each outcome's statistic becomes a p-value against the same draws, and the adjusted
+    p-value of the i-th smallest raw p-value is the share of draws whose smallest p-value
+    among the outcomes ranked i and after reaches it (Westfall & Young 1993, algorithm 2.8),
+    made monotone. Using the same draws keeps the dependence between outcomes, so the
+    adjustment is less severe than Holm's when outcomes move together.
+
+    Parameters
+    ----------
+    family : tuple of RandomizationDraws
+        From `randomization_family` (the same draws for every outcome).
+    null_effects : tuple of float, optional
+        θ0 per outcome (default 0).
+
+    Returns
+    -------
+    tuple of float
+        Adjusted p-values, in the order of `family`.
+    """
+    m = len(family)
+    thetas = null_effects or (0.0,) * m
+    exact = family[0].exact
+    size = family[0].a.size
+    drawn = np.stack([np.abs(f.a - t * f.b) for f, t in zip(family, thetas, strict=True)])
+    tolerance = 1 - 1e-12
+    # p-value of every draw's own statistic against the draws, per outcome: the share of
+    # draws at least as large (ties included), counting the observed assignment as a draw
+    star = np.empty_like(drawn)
+    for k in range(m):
+        order = np.sort(drawn[k])
+        at_least = size - np.searchsorted(order, drawn[k] * tolerance, side="left")
+        star[k] = at_least / size if exact else (1 + at_least) / (1 + size)
+    raw = np.array([_p_value(f, t) for f, t in zip(family, thetas, strict=True)])
+    ranked = np.argsort(raw, kind="stable")
+    adjusted = np.empty(m)
+    running = 0.0
+    for i, k in enumerate(ranked):
+        smallest = star[ranked[i:]].min(axis=0)
+        reach = np.count_nonzero(smallest <= raw[k] * (1 + 1e-12))
+        value = reach / size if exact else (1 + reach) / (1 + size)
+        running = max(running, min(value, 1.0))
+        adjusted[k] = running
+    return tuple(float(v) for v in adjusted)

@@ -88,3 +88,25 @@ def test_a_null_effect_other_than_zero_is_tested(tmp_path) -> None:
     # by construction: -150 lies inside the randomization interval, so it is not rejected
     assert got["interval"][0] < -150 < got["interval"][1] and got["p_value"] > 0.05
     assert "for an effect of exactly" in " ".join(done.stdout.split())
+
+
+def test_several_outcomes_get_westfall_young_from_the_same_draws(tmp_path) -> None:
+    from strativ.estimators.randomization import randomization_family, westfall_young
+
+    spec = tmp_path / "ri.yaml"
+    spec.write_text(SPEC.replace("outcome: gas_therms", "outcome: [gas_therms, behind_on_bills]"),
+                    encoding="utf-8")
+    done = CliRunner().invoke(app, ["run", str(spec), "--out", str(tmp_path / "out")])
+    assert done.exit_code == 0, done.stderr
+    got = json.loads((tmp_path / "out" / "results.json").read_text(encoding="utf-8"))[
+        "randomization_outcomes"]
+    rows = pd.concat([pd.read_csv(p) for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
+    family = randomization_family(rows[["gas_therms", "behind_on_bills"]].to_numpy(float),
+                                  rows["retrofitted"], rows["won_lottery"],
+                                  rows["district"].to_numpy(object), draws=199, seed=11)
+    # reference: the core's family on the same rows and draws
+    assert got["westfall_young"] == list(westfall_young(family))
+    assert got["p_value"] == [randomization_test(f).p_value for f in family]
+    # by construction: the demo has no missing outcome
+    assert got["rows"] == len(rows) and got["outcomes"] == ["gas_therms", "behind_on_bills"]
+    assert all(w >= p for w, p in zip(got["westfall_young"], got["p_value"], strict=True))

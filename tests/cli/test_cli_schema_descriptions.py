@@ -25,7 +25,7 @@ VARIANT_SPEC = """\
 title: Insulation lottery demo by district and round (invented data)
 data: rounds.csv
 columns:
-  outcome: gas_therms
+  outcome: [gas_therms, behind_on_bills]
   take_up: retrofitted
   offer: won_lottery
   stratum: [district, round]
