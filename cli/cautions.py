@@ -103,7 +103,11 @@ def data_warnings(spec: Spec, dataset: GroupedData) -> list[str]:
         out.append(f"cluster column '{cols.cluster}' is used: variance '{spec.variance}' "
                    f"is {form}")
     if dataset.n_dropped:
-        parts = ", ".join(f"{name}: {count}" for name, count in dataset.dropped)
+        arms = {a[0]: a[1:] for a in dataset.dropped_by_arm}
+        parts = ", ".join(
+            f"{name}: {count}" + (f" ({arms[name][0]} offered, {arms[name][1]} not offered)"
+                                  if name in arms else "")
+            for name, count in dataset.dropped)
         out.append(f"{dataset.n_dropped} of {dataset.n_read} rows were dropped because a value "
                    f"was missing ({parts})")
     return out

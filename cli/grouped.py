@@ -66,6 +66,9 @@ class GroupedData:
     """(column, rows dropped because it was missing there)."""
     n_dropped: int
     """Incomplete rows dropped (a row missing several columns counts once)."""
+    dropped_by_arm: tuple[tuple[str, int, int], ...] = ()
+    """(column, offered, not offered) of the rows dropped under each column other than the
+    offer (whose rows have no arm)."""
     stratum_parts: dict[Any, tuple[Any, ...]] = field(default_factory=dict)
     """For a stratum from several columns: label -> its value in each column."""
     dataset: Dataset | None = None
@@ -255,12 +258,17 @@ def _finish(spec: Spec, roles: Roles, frame: pd.DataFrame,
         view[cols.cluster] = "cluster"
     incomplete = np.zeros(len(frame), dtype=bool)
     dropped = {}
+    arms = {}
+    offer = frame["offer"].to_numpy(dtype=float, na_value=np.nan)
     for name in names:
         miss = frame["prob_missing"].to_numpy(dtype=bool) if name not in view \
             else _null(frame, view[name])
         if miss.any() and not spec.drop_incomplete_rows:
             return None
-        dropped[name] = int(n[miss & ~incomplete].sum())
+        here = miss & ~incomplete
+        dropped[name] = int(n[here].sum())
+        if name != cols.offer:  # the offer is known for every row dropped after it
+            arms[name] = (int(n[here & (offer == 1)].sum()), int(n[here & (offer == 0)].sum()))
         incomplete |= miss
     # groups in key order: the engine returns them in any order, and the cell table adds
     # them in the order given, so a fixed order gives the same bits on every run
@@ -288,6 +296,8 @@ def _finish(spec: Spec, roles: Roles, frame: pd.DataFrame,
         n_read=int(n.sum()),
         dropped=tuple((name, c) for name, c in dropped.items() if c),
         n_dropped=int(n[incomplete].sum()),
+        dropped_by_arm=tuple((name, *arms[name]) for name, c in dropped.items()
+                             if c and name in arms),
         stratum_parts={} if len(texts) == 1 else _label_parts(labels, texts),
     )
 
@@ -353,4 +363,5 @@ def from_rows(spec: Spec, dataset: Dataset) -> GroupedData:
     return GroupedData(spec=spec, files=dataset.files, groups=groups, roles=roles,
                        n_read=dataset.n_read, dropped=dataset.dropped,
                        n_dropped=dataset.n_dropped, stratum_parts=dataset.stratum_parts,
+                       dropped_by_arm=dataset.dropped_by_arm,
                        dataset=dataset)

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import hashlib
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -93,6 +93,9 @@ class Dataset:
     """(column, rows dropped because it was missing there), for incomplete rows."""
     n_dropped: int
     """Incomplete rows dropped (a row missing several columns counts once)."""
+    dropped_by_arm: tuple[tuple[str, int, int], ...] = ()
+    """(column, offered, not offered) of the rows dropped under each column other than the
+    offer."""
     stratum_parts: dict[Any, tuple[Any, ...]] = field(default_factory=dict)
     """For a stratum built from several columns: label -> the value of each stratum column,
     in the spec's order (int when every value of that column is an integer, else str). Empty
@@ -329,6 +332,7 @@ def load_data(spec: Spec) -> Dataset:
     pieces: list[dict[str, np.ndarray]] = []
     files: list[InputFile] = []
     dropped = dict.fromkeys(incomplete_names, 0)
+    arms = {name: [0, 0] for name in incomplete_names if name != spec.columns.offer}
     n_read = n_dropped = 0
     digests = _distinct_digests(spec)
     for index, path in enumerate(spec.data):
@@ -349,7 +353,12 @@ def load_data(spec: Spec) -> Dataset:
                                 f"{int(miss.sum())} missing value(s), first in {rows}",
                                 "fill them in, or add 'missing: {drop_incomplete_rows: true}' "
                                 "to the spec to drop such rows (they are counted)")
-            dropped[name] += int((miss & ~incomplete).sum())
+            here = miss & ~incomplete
+            dropped[name] += int(here.sum())
+            if name != spec.columns.offer:
+                offer = parsed[spec.columns.offer].values
+                arms[name][0] += int((here & (offer == 1)).sum())
+                arms[name][1] += int((here & (offer == 0)).sum())
             incomplete |= miss
         n_dropped += int(incomplete.sum())
         keep = ~incomplete
@@ -358,7 +367,9 @@ def load_data(spec: Spec) -> Dataset:
         piece["__row"] = table.rows[keep]
         piece["__line"] = table.lines[keep]
         pieces.append(piece)
-    return _assemble(spec, files, pieces, n_read, dropped, n_dropped)
+    dataset = _assemble(spec, files, pieces, n_read, dropped, n_dropped)
+    return replace(dataset, dropped_by_arm=tuple(
+        (name, *arms[name]) for name, count in dropped.items() if count and name in arms))
 
 
 def _assemble(spec: Spec, files: list[InputFile], pieces: list[dict[str, np.ndarray]],

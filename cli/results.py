@@ -228,7 +228,12 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
             "read": data.n_read,
             "kept": data.n_rows,
             "dropped_incomplete": data.n_dropped,
-            "dropped_by_column": [{"column": c, "rows": n} for c, n in data.dropped],
+            "dropped_by_column": [
+                {"column": c, "rows": n,
+                 **dict(zip(("offered", "not_offered"),
+                            next((a[1:] for a in data.dropped_by_arm if a[0] == c),
+                                 (None, None)), strict=True))}
+                for c, n in data.dropped],
         },
         "offer_probability": probabilities,
         "estimates": estimates,

@@ -134,7 +134,10 @@ def test_drop_incomplete_rows_drops_and_counts(study: Study, invoke) -> None:
         "read": len(rows),
         "kept": len(rows) - 3,
         "dropped_incomplete": 3,
-        "dropped_by_column": [{"column": "offer", "rows": 2}, {"column": "site", "rows": 1}],
+        "dropped_by_column": [
+            {"column": "offer", "rows": 2, "offered": None, "not_offered": None},
+            {"column": "site", "rows": 1, "offered": rows[10]["offer"],
+             "not_offered": 1 - rows[10]["offer"]}],
     }
     assert doc["estimates"][0]["n_units"] == len(rows) - 3
     assert "3 of 76 rows were dropped" in " ".join(result.stderr.split())

@@ -131,8 +131,12 @@ def test_the_csv_run_sees_the_gaps_made(results: dict[str, dict[str, Any]]) -> N
     # by construction: households() blanks take-up in 3 of round 1's 1,840 rows
     # (demo_data/README.md), and 'drop_incomplete_rows' drops them
     assert doc["rows"]["read"] == 1840
+    offers = pd.read_csv(REPO / "demo_data" / "round_1.csv")["won_lottery"].to_numpy()
+    offered = int(offers[list(RETROFIT_GAPS)].sum())
     assert doc["rows"]["dropped_by_column"] == [{"column": "retrofitted",
-                                                 "rows": len(RETROFIT_GAPS)}]
+                                                 "rows": len(RETROFIT_GAPS),
+                                                 "offered": offered,
+                                                 "not_offered": len(RETROFIT_GAPS) - offered}]
     # by construction: 2 outcomes x 3 estimators in the spec
     assert len(doc["estimates"]) == 6
     # by construction: the stratum is the district code, 100 to 109, not its value label

@@ -126,6 +126,12 @@ def test_dropped_rows_clusters_and_a_probability_column_match(study: Study) -> N
     # by construction: rows 5, 18, ... miss the offer and rows 3, 20, ... the stratum
     assert got.n_dropped == len([i for i in range(76) if i % 13 == 5 or i % 17 == 3])
     assert got.probability_ranges()["east"] == (0.7, 0.7)
+    # by construction: rows dropped for the stratum (offer present) split by their offer,
+    # in the engine's grouping and in the row reader alike
+    site_only = [r for i, r in enumerate(rows) if i % 17 == 3 and i % 13 != 5]
+    offered = sum(1 for r in site_only if r["offer"] == 1)
+    assert got.dropped_by_arm == (("site", offered, len(site_only) - offered),)
+    assert load_data(load_spec(study.spec)).dropped_by_arm == got.dropped_by_arm
 
 
 def test_a_stratum_from_two_columns_and_integer_ids_from_parquet(tmp_path: Path) -> None:

@@ -263,7 +263,8 @@ def test_the_real_results_files_reach_every_declared_property(documents) -> None
     rounds = documents["rounds"]
     # by construction: _variant_rows leaves one offer empty, empties outcomes, offers all
     # of Lakeshore round 2 and flips take-up in Millbrook round 3
-    assert rounds["rows"]["dropped_by_column"] == [{"column": "won_lottery", "rows": 1}]
+    assert rounds["rows"]["dropped_by_column"] == [{"column": "won_lottery", "rows": 1,
+                                                    "offered": None, "not_offered": None}]
     assert rounds["attrition"] and rounds["exclusions"] and rounds["offer_probability"]
     assert rounds["comparisons"][0]["offer_counts"] is not None
     assert [r["label"] for r in rounds["comparisons"][0]["negative_first_stage"]] == \
