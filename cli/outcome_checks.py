@@ -6,6 +6,7 @@ locates the core's refusals; nothing is computed here.
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import Any
 
 import pandas as pd
@@ -23,6 +24,7 @@ from strativ.estimators.randomization import (
 )
 from strativ.estimators.sensitivity import (
     DirectEffectSensitivity,
+    defier_table,
     direct_effect_sensitivity,
     shift_by_offer,
 )
@@ -67,7 +69,9 @@ def direct_effect(spec: Spec, data: GroupedData, name: str, comparison: Comparis
                    variance=variance_used(spec), assignment=spec.assignment,
                    sampling=spec.sampling, level=spec.level, offer_probability=mapping)
 
-    return direct_effect_sensitivity(fit_at, estimator, spec.direct_effect)
+    found = direct_effect_sensitivity(fit_at, estimator, spec.direct_effect)
+    first_stage = next(e.first_stage for e in comparison.estimates if e.estimator == estimator)
+    return replace(found, defiers=defier_table(first_stage, spec.defier_shares))
 
 
 def adjusted_fits(spec: Spec, data: GroupedData, name: str, comparison: Any,

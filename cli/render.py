@@ -208,6 +208,12 @@ def _sensitivity(console: Console, result: OutcomeResult) -> None:
             f"With such a direct effect anywhere from {format_number(low)} to "
             f"{format_number(high)}, the {name} intervals together span "
             f"{format_interval(sens.union)}."))
+    for row in sens.defiers:
+        console.print(_indented(
+            f"If {row.defier_share:.1%} of units were defiers, the {name} estimate would "
+            f"describe {row.comvivor_share:.0%} of the compliers at best, or equal their "
+            f"effect plus {format_number(row.bias_factor, digits=3)} × (their effect minus "
+            "the defiers')."))
 
 
 def _randomization(console: Console, result: OutcomeResult) -> None:

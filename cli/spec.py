@@ -25,7 +25,12 @@ from strativ.estimators.options import (
 
 from .errors import SpecError
 from .spec_reading import READING_KEYS, ReadOptions, read_options
-from .spec_sensitivity import SENSITIVITY_KEYS, direct_effect_range, randomization_options
+from .spec_sensitivity import (
+    SENSITIVITY_KEYS,
+    defier_shares,
+    direct_effect_range,
+    randomization_options,
+)
 from .tables import DATA_SUFFIXES, FORMATS_TEXT
 from .yamlmarks import KeyPath, compose_with_lines, dotted, line_of
 
@@ -174,6 +179,8 @@ class Spec:
     """How the files are read (separator, decimal mark, offer/take-up codes) and the engine."""
     direct_effect: tuple[float, float] | None = None
     """Range of direct effects of the offer to report (`sensitivity.direct_effect`)."""
+    defier_shares: tuple[float, ...] = ()
+    """Defier shares to tabulate (`sensitivity.defier_share`)."""
     randomization: tuple[int, int, float] | None = None
     """(draws, seed, null effect) of randomization inference (`inference.randomization`), or
     None."""
@@ -219,7 +226,8 @@ class Spec:
             "missing": {"drop_incomplete_rows": self.drop_incomplete_rows},
             "reading": self.reading.to_dict(),
             "sensitivity": {"direct_effect": None if self.direct_effect is None
-                            else list(self.direct_effect)},
+                            else list(self.direct_effect),
+                            "defier_share": list(self.defier_shares)},
         }
 
 
@@ -409,6 +417,7 @@ def load_spec(path: Path | str) -> Spec:
         data_kind="moments" if kind == "moments" else "rows",
         reading=read_options(path, lines, top.get("reading"), top.get("engine")),
         direct_effect=direct_effect_range(path, lines, top.get("sensitivity")),
+        defier_shares=defier_shares(path, lines, top.get("sensitivity")),
         randomization=randomization_options(path, lines, inference.get("randomization")),
         lines=dict(lines),
     )

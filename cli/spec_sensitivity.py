@@ -3,6 +3,7 @@ offer to report) and `inference.randomization` (re-drawn offers).
 
     sensitivity:
       direct_effect: [-5, 5]     # in the outcome's units, per offered unit
+      defier_share: [0.01, 0.05] # shares of units assumed to be defiers
     inference:
       randomization: {draws: 2000, seed: 7, null_effect: 0}   # or: randomization: true
 
@@ -19,10 +20,10 @@ from typing import Any
 from .errors import SpecError
 from .yamlmarks import KeyPath, dotted, line_of
 
-__all__ = ["RANDOMIZATION_DRAWS", "RANDOMIZATION_SEED", "SENSITIVITY_KEYS",
+__all__ = ["RANDOMIZATION_DRAWS", "RANDOMIZATION_SEED", "SENSITIVITY_KEYS", "defier_shares",
            "direct_effect_range", "randomization_options"]
 
-SENSITIVITY_KEYS = ("direct_effect",)
+SENSITIVITY_KEYS = ("direct_effect", "defier_share")
 RANDOMIZATION_DRAWS = 2000
 """Re-draws of the offers by default."""
 RANDOMIZATION_SEED = 20261203
@@ -100,3 +101,17 @@ def randomization_options(path: Path, lines: dict[KeyPath, int],
         raise _error(path, lines, keys + ("null_effect",), f"'{dotted(keys)}.null_effect' "
                      f"must be a number (the effect of take-up under the null), found {null!r}")
     return out[0], out[1], float(null)
+
+
+def defier_shares(path: Path, lines: dict[KeyPath, int], value: Any) -> tuple[float, ...]:
+    """Validate `sensitivity.defier_share`: a share or a list of shares in [0, 1)."""
+    if not isinstance(value, dict) or value.get("defier_share") is None:
+        return ()
+    raw = value["defier_share"]
+    items = raw if isinstance(raw, list) else [raw]
+    keys: KeyPath = ("sensitivity", "defier_share")
+    for item in items:
+        if isinstance(item, bool) or not isinstance(item, (int, float)) or not 0 <= item < 1:
+            raise _error(path, lines, keys, f"'{dotted(keys)}' must be shares of units in "
+                         f"[0, 1), found {item!r}", "for example  defier_share: [0.01, 0.05]")
+    return tuple(float(v) for v in items)

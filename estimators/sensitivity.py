@@ -20,8 +20,8 @@ import pandas as pd
 
 from .results import Estimate
 
-__all__ = ["DirectEffectRow", "DirectEffectSensitivity", "direct_effect_sensitivity",
-           "shift_by_offer"]
+__all__ = ["DefierRow", "DirectEffectRow", "DirectEffectSensitivity", "defier_table",
+           "direct_effect_sensitivity", "shift_by_offer"]
 
 _STEPS = 52
 """Bisection steps for the δ that brings the interval to zero (to the last bits of δ)."""
@@ -60,12 +60,15 @@ class DirectEffectSensitivity:
     union: tuple[float, float] | None
     """The union of the intervals over the user's range (None without a range or when an
     interval is undefined)."""
+    defiers: tuple[DefierRow, ...] = ()
+    """The same estimator under assumed shares of defiers (`defier_table`)."""
 
     def to_dict(self) -> dict[str, Any]:
         """Return the JSON form."""
         return {"estimator": self.estimator, "delta_to_zero": self.delta_to_zero,
                 "rows": [r.to_dict() for r in self.rows],
-                "union": None if self.union is None else list(self.union)}
+                "union": None if self.union is None else list(self.union),
+                "defiers": [d.to_dict() for d in self.defiers]}
 
 
 def shift_by_offer(frame: pd.DataFrame, delta: float) -> pd.DataFrame:
@@ -151,3 +154,48 @@ def direct_effect_sensitivity(
             # in δ and the upper end convex, so over the range both extremes sit at its ends
             union = (min(r.interval[0] for r in rows), max(r.interval[1] for r in rows))
     return DirectEffectSensitivity(estimator, to_zero, tuple(rows), union)
+
+
+@dataclass(frozen=True, slots=True)
+class DefierRow:
+    """What a given share of defiers would mean for a Wald-type estimate."""
+
+    defier_share: float
+    """Assumed share ρ of units who take the programme up only when not offered."""
+    complier_share: float
+    """Compliers then: the first stage plus ρ."""
+    comvivor_share: float
+    """Share of the compliers the estimate describes when defiers' effects are matched by as
+    many compliers' (de Chaisemartin 2017): first stage / (first stage + ρ)."""
+    bias_factor: float
+    """The estimate equals the compliers' average effect plus this factor times (compliers'
+    minus defiers' average effect): ρ / first stage."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the JSON form."""
+        return {name: getattr(self, name) for name in self.__slots__}
+
+
+def defier_table(first_stage: float, shares: Sequence[float]) -> tuple[DefierRow, ...]:
+    """How a share of defiers changes what an estimate with first stage FS describes.
+
+    With compliers π_C and defiers π_D = ρ, the first stage is FS = π_C − ρ and the Wald ratio
+    is ``(π_C β_C − ρ β_D) / FS = β_C + (ρ / FS)(β_C − β_D)`` (de Chaisemartin 2017).
+
+    Parameters
+    ----------
+    first_stage : float
+        The estimator's overall first stage (a share of units), positive.
+    shares : sequence of float
+        Defier shares to tabulate, each in [0, 1).
+
+    Returns
+    -------
+    tuple of DefierRow
+        One row per share; empty when the first stage is not positive.
+    """
+    if not first_stage > 0:
+        return ()
+    return tuple(DefierRow(float(rho), float(first_stage + rho),
+                           float(first_stage / (first_stage + rho)),
+                           float(rho / first_stage)) for rho in shares)

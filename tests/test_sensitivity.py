@@ -85,3 +85,19 @@ def test_the_union_spans_every_interval_of_the_range(rows) -> None:
     assert low == pytest.approx(min(g[0] for g in grid), rel=1e-12)
     assert high == pytest.approx(max(g[1] for g in grid), rel=1e-12)
     assert [r.delta for r in result.rows] == [-0.5, 0.0, 1.5]
+
+
+def test_the_defier_table_follows_the_wald_ratio_with_defiers() -> None:
+    from strativ.estimators.sensitivity import defier_table
+
+    # a population written out: compliers 0.5 with effect 2, defiers 0.1 with effect -1,
+    # always-takers 0.2, never-takers 0.2
+    complier, defier, beta_c, beta_d = 0.5, 0.1, 2.0, -1.0
+    first_stage = complier - defier  # P(D=1|Z=1) - P(D=1|Z=0) = (0.5 + 0.2) - (0.1 + 0.2)
+    wald = (complier * beta_c - defier * beta_d) / first_stage
+    row = defier_table(first_stage, [defier])[0]
+    # source: de Chaisemartin (2017): Wald = beta_C + (rho / FS)(beta_C - beta_D)
+    assert wald == pytest.approx(beta_c + row.bias_factor * (beta_c - beta_d), rel=1e-12)
+    assert row.complier_share == pytest.approx(complier, rel=1e-12)
+    assert row.comvivor_share == pytest.approx(first_stage / complier, rel=1e-12)
+    assert defier_table(0.0, [0.1]) == ()

@@ -41,6 +41,7 @@ reading:
     take_up: {'yes': 1, 'no': 0}
 sensitivity:
   direct_effect: [-50, 50]
+  defier_share: [0.01, 0.05]
 inference:
   randomization: {draws: 99, seed: 3}
 """

@@ -32,7 +32,7 @@ def test_the_range_and_the_delta_to_zero_follow_the_definition(tmp_path) -> None
     done = CliRunner().invoke(app, ["run", str(spec), "--out", str(tmp_path / "out")])
     assert done.exit_code == 0, done.stderr
     doc = json.loads((tmp_path / "out" / "results.json").read_text(encoding="utf-8"))
-    assert doc["spec"]["sensitivity"] == {"direct_effect": [-20.0, 30.0]}
+    assert doc["spec"]["sensitivity"] == {"direct_effect": [-20.0, 30.0], "defier_share": []}
     rows = pd.concat([pd.read_csv(p) for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
     sens = doc["comparisons"][0]["sensitivity"]
     # by construction: the demo's reported complier estimator (no design probabilities)
@@ -61,8 +61,24 @@ def test_the_range_and_the_delta_to_zero_follow_the_definition(tmp_path) -> None
     ("sensitivity:\n  direct_effect: [5, -5]\n", "two numbers, low then high"),
     ("sensitivity:\n  direct_effect: 3\n", "two numbers, low then high"),
     ("sensitivity:\n  defiers: 0.1\n", "unknown key 'defiers'"),
+    ("sensitivity:\n  defier_share: [0.5, 1.2]\n", "shares of units in [0, 1)"),
 ])
 def test_a_wrong_range_is_named_with_its_line(tmp_path, extra: str, fragment: str) -> None:
     spec = _spec(tmp_path, extra)
     done = CliRunner().invoke(app, ["check", str(spec)])
     assert_clean_failure(done, SPEC_ERROR, "demo.yaml", fragment)
+
+
+def test_the_defier_table_uses_the_reported_first_stage(tmp_path) -> None:
+    spec = _spec(tmp_path, "sensitivity:\n  defier_share: [0.02]\n")
+    done = CliRunner().invoke(app, ["run", str(spec), "--out", str(tmp_path / "out")])
+    assert done.exit_code == 0, done.stderr
+    doc = json.loads((tmp_path / "out" / "results.json").read_text(encoding="utf-8"))
+    sens = doc["comparisons"][0]["sensitivity"]
+    first = next(e["first_stage"] for e in doc["estimates"]
+                 if e["estimator"] == sens["estimator"] and e["outcome"] == "gas_therms")
+    # source: de Chaisemartin (2017): complier share FS + rho, bias factor rho / FS
+    assert sens["defiers"] == [{"defier_share": 0.02, "complier_share": first + 0.02,
+                                "comvivor_share": first / (first + 0.02),
+                                "bias_factor": 0.02 / first}]
+    assert "were defiers" in " ".join(done.stdout.split())
