@@ -116,12 +116,14 @@ def adjusted_fits(spec: Spec, data: GroupedData, name: str, comparison: Any,
 def randomization_family_test(spec: Spec, data: GroupedData,
                               progress: Any = None) -> RandomizationFamily | None:
     """Westfall-Young adjusted randomization p-values across the outcomes, from one set of
-    re-draws over the rows that have every outcome (None with one outcome or when
-    randomization inference is off)."""
+    re-draws over the rows that have every outcome (None with one outcome, when
+    randomization inference is off, or when no rows have every outcome in both arms)."""
     if spec.randomization is None or len(data.outcomes) < 2:
         return None
     draws, seed, null_effect = spec.randomization
     rows = outcome_rows(data, list(data.outcomes))
+    if rows.outcome.shape[0] == 0 or len(set(rows.offer.tolist())) < 2:
+        return None  # no row has every outcome in both arms: each outcome keeps its own test
     try:
         family = randomization_family(rows.outcome, rows.take_up, rows.offer, rows.stratum,
                                       cluster=rows.cluster, draws=draws, seed=seed,
