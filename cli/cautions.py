@@ -14,6 +14,7 @@ from strativ.estimators import Comparison
 from strativ.estimators.options import WEAK_FIRST_STAGE_F
 from strativ.estimators.profile import CovariateProfile
 
+from .covariate_data import ADJUSTED_VARIANCES
 from .grouped import GroupedData
 from .spec import Spec
 
@@ -89,6 +90,12 @@ def data_warnings(spec: Spec, dataset: GroupedData) -> list[str]:
     if cols.covariates and not dataset.roles.covariates:
         out.append("covariates " + ", ".join(cols.covariates) + " are not in the moment table "
                    "and were not used: no balance check, and every estimate is unadjusted")
+    if cols.covariates and dataset.roles.covariates and dataset.from_moments and \
+            variance_used(spec) not in ADJUSTED_VARIANCES:
+        out.append("covariates " + ", ".join(cols.covariates) + " are used for balance and "
+                   f"complier means but not for adjustment: variance '{spec.variance}' with "
+                   "covariates needs the regression's sandwich from the unit rows, which a "
+                   "moment table does not hold; run on the rows, or use variance 'stratified'")
     if cols.covariates and dataset.roles.covariates:
         g = dataset.groups
         for name, role in zip(cols.covariates, dataset.roles.covariates, strict=True):

@@ -82,11 +82,13 @@ def adjusted_fits(spec: Spec, data: GroupedData, name: str, comparison: Any,
     variance = variance_used(spec)
     labels = [r.label for r in comparison.strata.rows]
     inputs = adjustment_inputs(data, name, labels)
-    if inputs is None:
-        return ()
+    if inputs is None or (data.from_moments and variance not in ADJUSTED_VARIANCES):
+        return ()  # a moment table has no rows for the robust sandwich (`cautions` says so)
     rows = keep = covariates = None
     if variance not in ADJUSTED_VARIANCES:
-        rows = outcome_rows(data, name)
+        rows = outcome_rows(data, name, f"variance '{variance}' with covariates needs the "
+                            "regression's sandwich from the unit rows (or use variance "
+                            "'stratified')")
         keep = pd.Series(rows.stratum, dtype=object).isin(labels).to_numpy()
         covariates = inputs.rows(rows.stratum[keep], rows.covariates[keep])
     out = []

@@ -47,10 +47,13 @@ def _from_dataset(data: GroupedData, names: list[str]) -> OutcomeRows:
                        None if rows.cluster is None else rows.cluster[keep], covariates)
 
 
-def outcome_rows(data: GroupedData, name: str | list[str]) -> OutcomeRows:
+def outcome_rows(data: GroupedData, name: str | list[str],
+                 purpose: str = "randomization inference re-draws the offers of the unit rows"
+                 ) -> OutcomeRows:
     """The kept rows with outcome `name`, read again by DuckDB (or taken from the row reader).
 
     With a list of outcomes: the rows that have all of them, the outcome an (n, m) array.
+    `purpose` says, in the message for a moment table, why rows are needed.
 
     Raises
     ------
@@ -58,8 +61,7 @@ def outcome_rows(data: GroupedData, name: str | list[str]) -> OutcomeRows:
         For a moment table, which holds no rows.
     """
     if data.from_moments:
-        raise DataError(None, None, (), "randomization inference re-draws the offers of the "
-                        "unit rows, and the run reads a moment table",
+        raise DataError(None, None, (), f"{purpose}, and the run reads a moment table",
                         "run the same spec on the row data (data: instead of moments:)")
     names = [name] if isinstance(name, str) else list(name)
     if data.dataset is not None:

@@ -9,6 +9,8 @@ rows (the core itself is checked against linearmodels in tests/test_adjust.py) a
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -161,3 +163,21 @@ def test_a_covariate_that_predicts_the_outcome_narrows_the_interval(study: Study
     ratios = [a["std_error_ratio"] for a in study.results()["adjusted_estimates"]]
     # by construction: the score carries most of the outcome's spread
     assert all(r < 0.6 for r in ratios), ratios
+
+
+def test_a_moment_table_with_robust_variance_skips_adjustment_and_says_why(tmp_path,
+                                                                     invoke) -> None:
+    table = tmp_path / "cells.csv"
+    assert invoke("cells", REPO / "specs" / "demo.yaml", "--out", table).exit_code == 0
+    text = (REPO / "specs" / "demo.yaml").read_text(encoding="utf-8")
+    spec = tmp_path / "m.yaml"
+    spec.write_text(text.replace("data: ../demo_data/round_*.csv", f"moments: {table}")
+                    .replace("variance: stratified", "variance: robust"), encoding="utf-8")
+    done = invoke("run", spec, "--out", tmp_path / "out")
+    assert done.exit_code == 0, done.stderr
+    doc = json.loads((tmp_path / "out" / "results.json").read_text(encoding="utf-8"))
+    # by construction: robust with covariates needs fourth moments, which a table lacks; the
+    # unadjusted run and the balance check go on, and a warning says why
+    assert doc["adjusted_estimates"] == [] and doc["covariates"] is not None
+    assert any("variance 'robust' with covariates needs the regression's sandwich" in w
+               for w in doc["warnings"])
