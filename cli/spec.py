@@ -105,7 +105,7 @@ class Columns:
     cluster: str | None
     """Optional cluster column (the unit of assignment)."""
     covariates: tuple[str, ...]
-    """Baseline covariates: balance and complier means are reported; not yet used to adjust."""
+    """Baseline covariates: used for adjustment, balance and complier means."""
 
     def roles(self) -> list[tuple[str, str]]:
         """Return (role, column) pairs in spec order, one per named column."""

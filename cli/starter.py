@@ -180,7 +180,7 @@ def starter_spec(data: Path, spec_path: Path) -> str:
     out += [
         "  # cluster: <column>    # optional: the unit offered as a whole; every variance "
         "flavour then reads it",
-        "  # covariates: [<column>, ...]   # optional: recorded, not yet used for adjustment",
+        "  # covariates: [<column>, ...]   # optional: baseline columns for adjustment and balance",
         "",
         "# design:",
         "#   offer_probability: estimated   # or a column name, or {stratum: probability, ...}",
