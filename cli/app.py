@@ -139,40 +139,47 @@ def run(
         "--out", "-o", file_okay=False, show_default=False,
         help="Output directory (overrides output.dir of the spec).")] = None,
     quiet: Annotated[bool, typer.Option(
-        "--quiet", "-q", help="Print nothing but errors; still write the result files.")] = False,
+        "--quiet", "-q", help="Print no report, only warnings and errors (on stderr); still "
+        "write the result files.")] = False,
     formats: Annotated[list[OutputFormat] | None, typer.Option(
         "--format", "-f", show_default=False,
         help="Result file to write: json (results.json) or csv (strata.csv); repeat for "
         "both. Default: output.formats of the spec.")] = None,
+    if_changed: Annotated[bool, typer.Option(
+        "--if-changed", help="Do nothing (exit 0) when the inputs, the spec and the strativ "
+        "version equal those of the last run recorded in the output folder.")] = False,
+    fail_on: Annotated[list[str] | None, typer.Option(
+        "--fail-on", show_default=False, metavar="CONDITION",
+        help="Exit 4 after writing the results when CONDITION holds; repeatable. "
+        "Conditions: first-stage-f<X, gap>X (standard errors), excluded-strata, "
+        "balance.")] = None,
 ) -> None:
     """Fit the estimators of SPEC, print the comparison and write the result files.
+
+    Every run appends a record to history.jsonl in the output folder.
 
     Example:  strativ run specs/demo.yaml --out results/ --format json
     """
     with _boundary() as err:
-        from .console import draw_progress
-        from .grouped import group_data
-        from .render import render_run, render_warnings
-        from .results import check_output_paths, write_outputs
-        from .runner import run_spec
-        from .spec import load_spec
+        from .gates import parse_gates
+        from .runs import run_command
 
-        loaded = load_spec(spec)
-        out_dir = loaded.output_dir if out is None else out.expanduser().resolve()
-        chosen = tuple(dict.fromkeys(f.value for f in formats)) if formats else loaded.formats
-        check_output_paths(loaded, out_dir, chosen)
-        with draw_progress(err, enabled=not quiet and loaded.randomization is not None) as bar:
-            result = run_spec(loaded, group_data(loaded), progress=bar)
-        if not quiet:
-            render_run(make_console(), result)
-        written = write_outputs(result, out_dir, chosen)
-        if not quiet:
-            render_warnings(err, result.warnings)
-            err.print(Text.assemble("wrote ", Text(", ".join(str(p) for p in written))))
+        gates = parse_gates(fail_on or [])
+        code = run_command(spec, out=out, quiet=quiet,
+                           formats=tuple(dict.fromkeys(f.value for f in formats))
+                           if formats else None,
+                           if_changed=if_changed, gates=gates, err=err,
+                           console=None if quiet else make_console())
+        if code:
+            raise typer.Exit(code)
 
 
 @app.command()
-def check(spec: SpecArg) -> None:
+def check(
+    spec: SpecArg,
+    quiet: Annotated[bool, typer.Option(
+        "--quiet", "-q", help="Print only problems: warnings and errors (on stderr).")] = False,
+) -> None:
     """Validate SPEC and its data and print the design summary, without printing estimates.
 
     The estimators' own checks run too, so it exits 0 exactly when `strativ run` can fit the
@@ -193,7 +200,8 @@ def check(spec: SpecArg) -> None:
         probabilities = design_probabilities(loaded, dataset)
         summary = summarize_design(loaded, dataset)
         design_notes = check_with_core(loaded, dataset, probabilities)
-        render_check(make_console(), loaded, dataset, summary, probabilities)
+        if not quiet:
+            render_check(make_console(), loaded, dataset, summary, probabilities)
         render_warnings(err, data_warnings(loaded, dataset) + design_notes)
 
 

@@ -28,6 +28,7 @@ __all__ = [
     "STRATA_COLUMNS",
     "output_paths",
     "check_output_paths",
+    "resolved_spec",
     "results_document",
     "strata_table",
     "strata_csv_columns",
@@ -138,7 +139,7 @@ def check_output_paths(spec: Spec, out_dir: Path, formats: tuple[str, ...]) -> N
     if out_dir.resolve() in inputs or (out_dir.exists() and not out_dir.is_dir()):
         raise UsageError(f"the output directory {out_dir} is a file",
                          "choose a directory with --out or output.dir")
-    for target in output_paths(out_dir, formats):
+    for target in [*output_paths(out_dir, formats), out_dir / "history.jsonl"]:
         resolved = target.resolve()
         if resolved in inputs:
             raise UsageError(f"writing {target} would overwrite an input file",
@@ -151,6 +152,32 @@ def check_output_paths(spec: Spec, out_dir: Path, formats: tuple[str, ...]) -> N
                     raise UsageError(f"{target} would match the data pattern '{entry}', so a "
                                      "later run would read the results as data",
                                      "choose another output directory with --out or output.dir")
+
+
+def resolved_spec(spec: Spec, *, out_dir: Path | None = None,
+                  formats: tuple[str, ...] | None = None) -> dict[str, Any]:
+    """The spec as results.json records it: the output folder and formats actually used.
+
+    Parameters
+    ----------
+    spec : Spec
+        The validated spec.
+    out_dir : Path, optional
+        Output directory used, when the command line overrode output.dir.
+    formats : tuple of str, optional
+        Output formats written, when the command line overrode output.formats.
+
+    Returns
+    -------
+    dict
+        JSON-ready spec.
+    """
+    out = spec.to_dict()
+    if out_dir is not None:
+        out["output"]["dir"] = str(out_dir)
+    if formats is not None:
+        out["output"]["formats"] = list(formats)
+    return out
 
 
 def _now() -> str:
@@ -209,11 +236,7 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
             "offer_counts": comp["offer_counts"],
             "notes": comp["notes"],
         })
-    spec = run.spec.to_dict()
-    if out_dir is not None:
-        spec["output"]["dir"] = str(out_dir)
-    if formats is not None:
-        spec["output"]["formats"] = list(formats)
+    spec = resolved_spec(run.spec, out_dir=out_dir, formats=formats)
     probabilities = None if run.offer_probability is None else [
         {"stratum": label, "probability": prob, **stratum_columns(run, label)}
         for label, prob in run.offer_probability.items()]
@@ -301,7 +324,8 @@ def strata_table(run: Run) -> str:
 
 
 def write_outputs(run: Run, out_dir: Path, formats: tuple[str, ...], *,
-                  created: str | None = None) -> list[Path]:
+                  created: str | None = None,
+                  document: dict[str, Any] | None = None) -> list[Path]:
     """Write the result files atomically (temporary file in `out_dir`, then rename).
 
     The files get the permissions of any new file under the current umask (0644 under
@@ -317,6 +341,9 @@ def write_outputs(run: Run, out_dir: Path, formats: tuple[str, ...], *,
         ``"json"`` and/or ``"csv"``.
     created : str, optional
         Timestamp for results.json.
+    document : dict, optional
+        The results.json content already assembled for this run, folder and formats
+        (`results_document`); assembled here when not given.
 
     Returns
     -------
@@ -331,7 +358,9 @@ def write_outputs(run: Run, out_dir: Path, formats: tuple[str, ...], *,
     check_output_paths(run.spec, out_dir, formats)
     texts = {}
     if "json" in formats:
-        document = results_document(run, created=created, out_dir=out_dir, formats=formats)
+        if document is None:
+            document = results_document(run, created=created, out_dir=out_dir,
+                                        formats=formats)
         texts["json"] = json.dumps(document, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
     if "csv" in formats:
         texts["csv"] = strata_table(run)
