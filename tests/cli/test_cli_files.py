@@ -46,7 +46,8 @@ def test_result_files_are_readable_by_others_under_umask_022(study: Study, invok
         # common practice, no source: umask 022 leaves read access for group and others
         assert _mode(study.out / name) & 0o044 == 0o044, (name, oct(_mode(study.out / name)))
     assert _mode(study.out / "history.jsonl") & 0o044 == 0o044
-    assert sorted(p.name for p in study.out.iterdir()) == ["history.jsonl", "results.json", "strata.csv"]
+    assert sorted(p.name for p in study.out.iterdir()) == [
+        "history.jsonl", "results.json", "strata.csv"]
 
 
 def test_result_files_follow_a_stricter_umask_too(study: Study, invoke) -> None:

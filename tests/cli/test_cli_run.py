@@ -234,7 +234,8 @@ def test_hand_written_minimal_spec_runs_with_defaults(study: Study, invoke) -> N
     assert result.exit_code == 0, result.stderr
     out = study.root / "strativ_out"
     # source: issue 4, output.dir defaults to strativ_out next to the spec, formats to both
-    assert sorted(p.name for p in out.iterdir()) == ["history.jsonl", "results.json", "strata.csv"]
+    assert sorted(p.name for p in out.iterdir()) == [
+        "history.jsonl", "results.json", "strata.csv"]
 
 
 def test_several_outcomes_and_combined_strata(study: Study, invoke) -> None:
@@ -299,7 +300,8 @@ def test_output_matching_the_data_glob_is_refused(study: Study, invoke) -> None:
 def test_rerun_replaces_results_atomically_without_leftovers(study: Study, invoke) -> None:
     for _ in range(2):
         assert invoke("run", study.spec, "--out", study.out, "-q").exit_code == 0
-    assert sorted(p.name for p in study.out.iterdir()) == ["history.jsonl", "results.json", "strata.csv"]
+    assert sorted(p.name for p in study.out.iterdir()) == [
+        "history.jsonl", "results.json", "strata.csv"]
 
 
 def test_markup_in_labels_is_printed_literally(study: Study, invoke) -> None:

@@ -62,4 +62,5 @@ def test_a_closed_stdout_pipe_still_writes_the_results(tmp_path: Path) -> None:
     # source: README exit codes (0 = success); the report has no reader, the files still do
     assert done.returncode == 0, done.stderr
     assert "Traceback" not in done.stderr
-    assert sorted(p.name for p in (tmp_path / "out").iterdir()) == ["history.jsonl", "results.json", "strata.csv"]
+    assert sorted(p.name for p in (tmp_path / "out").iterdir()) == [
+        "history.jsonl", "results.json", "strata.csv"]
