@@ -1,4 +1,4 @@
-"""The `strativ` command: run, check, init, --version.
+"""The `strativ` command: run, check, cells, compare, init, --version.
 
 Command functions are thin: they convert arguments, call the library, render and write. One
 boundary (`_boundary`) turns every error into a message on stderr and an exit code, so no
@@ -9,6 +9,8 @@ traceback reaches the user:
 - 2: usage or spec error (unknown key, bad value, missing file, refused output path; also
   command-line mistakes reported by the argument parser);
 - 3: data error (missing column, bad codes, missing values, empty or unreadable file);
+- 4: a gate held: a `run --fail-on` condition, or a `compare --fail-beyond` shift (the
+  results are written and the report printed first);
 - 130: interrupted (Ctrl-C).
 
 This module imports only typer, rich and the error types. Each command imports the spec
@@ -250,6 +252,32 @@ def cells(
         err.print(Text.assemble("wrote ", Text(str(target)), f" ({len(data.groups):,} groups "
                                 f"of {data.n_rows:,} rows); small groups can reveal single "
                                 "units: apply your disclosure rules before sharing it"))
+
+
+@app.command()
+def compare(
+    old: Annotated[Path, typer.Argument(show_default=False, metavar="OLD",
+                                        help="An earlier results.json (or its folder).")],
+    new: Annotated[Path, typer.Argument(show_default=False, metavar="NEW",
+                                        help="A later results.json (or its folder).")],
+    fail_beyond: Annotated[float | None, typer.Option(
+        "--fail-beyond", show_default=False, metavar="K",
+        help="Exit 4 when any estimate moved by more than K of its earlier standard "
+        "errors.")] = None,
+) -> None:
+    """Say what changed between two runs: input files, rows, strata, and each estimate and
+    interval with its shift in standard errors.
+
+    Example:  strativ compare last/results.json results/results.json --fail-beyond 2
+    """
+    with _boundary():
+        from .compare import compare_files, render_comparison
+
+        report = compare_files(old, new)
+        code = report.exit_code(fail_beyond=fail_beyond)
+        render_comparison(make_console(), report, fail_beyond=fail_beyond)
+        if code:
+            raise typer.Exit(code)
 
 
 @app.command()

@@ -17,6 +17,7 @@ from strativ.estimators.profile import CovariateProfile
 from .covariate_data import ADJUSTED_VARIANCES
 from .grouped import GroupedData
 from .spec import Spec
+from .waves import pooled_share_warnings
 
 if TYPE_CHECKING:
     from .runner import OutcomeResult
@@ -117,6 +118,8 @@ def data_warnings(spec: Spec, dataset: GroupedData) -> list[str]:
             for name, count in dataset.dropped)
         out.append(f"{dataset.n_dropped} of {dataset.n_read} rows were dropped because a value "
                    f"was missing ({parts})")
+    if not dataset.from_moments:
+        out += pooled_share_warnings(spec, dataset)
     return out
 
 

@@ -39,6 +39,7 @@ from .loading import (
 from .spec import Spec
 from .units_sql import UNITS_VIEW, Roles, UnreadableError, roles_of, units_view
 from .values import parse_label
+from .waves import centre_keys, splits_strata, wave_part
 
 __all__ = ["CENTRE_ROWS", "GroupedData", "group_data", "from_rows"]
 
@@ -75,6 +76,9 @@ class GroupedData:
     """The rows, when they were read row by row (else loaded on demand by `rows`)."""
     from_moments: bool = False
     """Whether the data are a moment table (`moment_table.read_moment_table`): no rows."""
+    part_names: tuple[str, ...] = ()
+    """Names of the parts of a stratum label when they are not the spec's (a moment table
+    that carries the wave of each stratum); empty: `waves.stratum_names` of the spec."""
 
     @property
     def n_rows(self) -> int:
@@ -176,7 +180,7 @@ class GroupedData:
 
 def _query(spec: Spec, roles: Roles) -> str:
     ranged = (roles.probability,) if roles.probability else ()
-    return group_query(UNITS_VIEW, keys=roles.keys, centre_keys=roles.strata,
+    return group_query(UNITS_VIEW, keys=roles.keys, centre_keys=centre_keys(spec, roles),
                        outcomes=roles.outcomes,
                        covariates=roles.covariates + roles.indicators,
                        uncentred=roles.indicators,
@@ -282,6 +286,8 @@ def _finish(spec: Spec, roles: Roles, frame: pd.DataFrame,
     files = [file_fingerprint(path, int(n[frame["file"].to_numpy() == i].sum()),
                               sha256=digests[i]) for i, path in enumerate(spec.data)]
     parts = [_labels(frame, kept, part) for part in roles.strata]
+    if splits_strata(spec):
+        parts.append(wave_part(spec, kept["file"].to_numpy()))
     groups = kept.drop(columns=list(roles.strata)).reset_index(drop=True)
     texts = [np.asarray(p, dtype=object).astype(str) for p in parts]
     labels = texts[0] if len(texts) == 1 else np.asarray(

@@ -33,6 +33,7 @@ from .values import (
     parse_number,
     recode,
 )
+from .waves import splits_strata, wave_part
 
 __all__ = ["InputFile", "Dataset", "load_data", "file_digest", "file_fingerprint"]
 
@@ -383,6 +384,8 @@ def _assemble(spec: Spec, files: list[InputFile], pieces: list[dict[str, np.ndar
         raise DataError(None, None, (), f"no rows left: all {n_read} rows miss an offer, "
                         "take-up or stratum value", "fill in the missing values")
     parts = [stack(name).astype(str) for name in cols.stratum]
+    if splits_strata(spec):
+        parts.append(wave_part(spec, stack("__file")).astype(str))
     labels = parts[0] if len(parts) == 1 else \
         np.asarray([STRATUM_JOIN.join(p) for p in zip(*parts, strict=True)], dtype=object)
     if len(parts) > 1:

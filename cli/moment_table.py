@@ -44,6 +44,7 @@ from .loading import STRATUM_JOIN, _integer_labels, _label_parts, file_fingerpri
 from .spec import Spec
 from .units_sql import Roles, roles_of
 from .values import parse_binary, parse_label, parse_number
+from .waves import WAVE_PART, part_names, splits_strata
 
 __all__ = ["MOMENT_FIELDS", "moment_sql", "read_moment_table", "write_moment_table"]
 
@@ -94,14 +95,21 @@ def moment_sql(spec: Spec, table: str = "units") -> str:
         The validated spec (its column names are the table's).
     table : str, default="units"
         The table or view holding one row per unit: offer and take-up 0/1, outcomes numeric
-        and NULL where missing, no missing stratum, offer or take-up.
+        and NULL where missing, no missing stratum, offer or take-up; when the spec's input
+        files split the strata into waves, also a column ``wave`` holding each row's wave
+        (its file's name without suffixes).
 
     Returns
     -------
     str
         Standard SQL (common table expressions, ``GROUP BY``, ``SUM``) for any engine.
     """
-    return group_query(table, keys=_keys(spec), centre_keys=list(spec.columns.stratum),
+    strata = list(spec.columns.stratum)
+    keys = _keys(spec)
+    if splits_strata(spec):  # each input file's wave is part of the stratum
+        strata.append(WAVE_PART)
+        keys.insert(len(spec.columns.stratum), WAVE_PART)
+    return group_query(table, keys=keys, centre_keys=strata,
                        outcomes=list(spec.columns.outcome),
                        covariates=list(spec.columns.covariates))
 
@@ -112,7 +120,7 @@ def _table(data: GroupedData) -> pd.DataFrame:
     out: dict[str, np.ndarray | list] = {}  # one frame at the end, not column by column
     if data.stratum_parts:
         parts = [data.stratum_parts[label] for label in g["stratum"].tolist()]
-        for i, name in enumerate(cols.stratum):
+        for i, name in enumerate(part_names(spec, data)):
             out[name] = [p[i] for p in parts]
     else:
         out[cols.stratum[0]] = g["stratum"].to_numpy(dtype=object)
@@ -245,6 +253,8 @@ def read_moment_table(spec: Spec) -> GroupedData:
                                 f"{row + 1} is {'missing' if parsed.missing[row] else 'not 0/1'}",
                                 "a moment table holds complete groups only")
             piece[name] = parsed.values
+        if WAVE_PART in frame.columns and WAVE_PART not in {c for _, c in cols.roles()}:
+            piece[WAVE_PART] = parse_label(frame[WAVE_PART].tolist()).values
         piece["n"] = _numbers(frame, path, "n", whole=True)
         for name, role in zip(cols.outcome, roles.outcomes, strict=True):
             for field in MOMENT_FIELDS:
@@ -264,7 +274,10 @@ def read_moment_table(spec: Spec) -> GroupedData:
                   covariates=roles.covariates if carried and covariates else (),
                   cluster=roles.cluster, probability=None)
     table = pd.concat(pieces, ignore_index=True)
-    texts = [table[name].to_numpy(dtype=object).astype(str) for name in cols.stratum]
+    names = list(cols.stratum)
+    if WAVE_PART in table.columns and WAVE_PART not in {c for _, c in cols.roles()}:
+        names.append(WAVE_PART)  # written from a run whose waves split the strata
+    texts = [table[name].to_numpy(dtype=object).astype(str) for name in names]
     labels = texts[0] if len(texts) == 1 else np.asarray(
         [STRATUM_JOIN.join(p) for p in zip(*texts, strict=True)], dtype=object)
     groups = pd.DataFrame({"stratum": _integer_labels(labels) if len(texts) == 1 else labels,
@@ -284,4 +297,5 @@ def read_moment_table(spec: Spec) -> GroupedData:
     return GroupedData(spec=spec, files=tuple(files), groups=groups, roles=roles,
                        n_read=int(groups["n"].sum()), dropped=(), n_dropped=0,
                        stratum_parts={} if len(texts) == 1 else _label_parts(labels, texts),
-                       from_moments=True)
+                       from_moments=True,
+                       part_names=tuple(names) if len(names) > len(cols.stratum) else ())

@@ -371,6 +371,9 @@ def render_run(console: Console, run: Run) -> None:
         _covariates(console, run.profile)
     if run.families:
         _families(console, run)
+    from .render_waves import render_waves
+
+    render_waves(console, run)
     console.print()
     console.print(_t(ASSUMPTIONS))
     console.print(_t(REVIEW))

@@ -21,6 +21,7 @@ from .errors import UsageError
 from .files import temporary_file
 from .runner import Run
 from .spec import Spec, glob_pattern
+from .waves import part_names
 
 __all__ = [
     "SCHEMA_VERSION",
@@ -70,7 +71,7 @@ def stratum_columns(run: Run, label: Any) -> dict[str, Any]:
     parts = run.dataset.stratum_parts.get(label)
     if parts is None:
         return {}
-    return {"stratum_columns": dict(zip(run.spec.columns.stratum, parts, strict=True))}
+    return {"stratum_columns": dict(zip(part_names(run.spec, run.dataset), parts, strict=True))}
 
 
 def strata_csv_columns(run: Run) -> tuple[str, ...]:
@@ -93,7 +94,7 @@ def strata_csv_columns(run: Run) -> tuple[str, ...]:
     if not run.dataset.stratum_parts:
         return STRATA_COLUMNS
     parts = tuple(f"stratum.{name}" if name in STRATA_COLUMNS else name
-                  for name in run.spec.columns.stratum)
+                  for name in part_names(run.spec, run.dataset))
     at = STRATA_COLUMNS.index("stratum") + 1
     return STRATA_COLUMNS[:at] + parts + STRATA_COLUMNS[at:]
 
@@ -273,6 +274,7 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
         "multiple_outcomes": [f.to_dict() for f in run.families],
         "randomization_outcomes": None if run.randomization_family is None
         else run.randomization_family.to_dict(),
+        "waves": None if run.waves is None else run.waves.to_dict(),
         "warnings": list(run.warnings),
     }
 

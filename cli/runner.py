@@ -45,7 +45,7 @@ from .core_errors import located_error
 from .covariate_data import run_profile
 from .errors import DataError
 from .grouped import GroupedData, from_rows
-from .loading import Dataset
+from .loading import STRATUM_JOIN, Dataset
 from .multiplicity import OutcomeFamily, outcome_families
 from .outcome_checks import (
     adjusted_fits,
@@ -54,6 +54,8 @@ from .outcome_checks import (
     randomization_family_test,
 )
 from .spec import Spec, suggest
+from .wave_fits import WaveSummary, wave_summary
+from .waves import splits_strata
 
 __all__ = [
     "AttritionCell",
@@ -137,6 +139,9 @@ class Run:
     randomization_family: RandomizationFamily | None = None
     """Westfall-Young adjusted randomization p-values across the outcomes (randomization
     inference with two or more outcomes)."""
+    waves: WaveSummary | None = None
+    """The input files as waves: strata rule, pooled-share test, each wave fitted alone
+    (None with one input file)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -310,8 +315,13 @@ def design_probabilities(spec: Spec, data: GroupedData) -> dict[Any, float] | No
         return None
     if source.source == "column":
         return _column_probabilities(spec, data, labels)
-    by_text = {str(label): label for label in labels}
+    by_text = {str(label): [label] for label in labels}
+    if splits_strata(spec):  # a probability given for a stratum holds in each of its waves
+        for label in labels:
+            base = STRATUM_JOIN.join(str(p) for p in data.stratum_parts[label][:-1])
+            by_text.setdefault(base, []).append(label)
     out: dict[Any, float] = {}
+    exact: set[Any] = set()
     for key, prob in source.by_stratum:
         if key not in by_text:
             hint = suggest(key, list(by_text)) or "strata in the data: " + ", ".join(
@@ -319,7 +329,11 @@ def design_probabilities(spec: Spec, data: GroupedData) -> dict[Any, float] | No
             raise spec.error(("design", "offer_probability", key),
                              f"offer_probability names stratum '{key}', which is not in the "
                              "data", hint)
-        out[by_text[key]] = prob
+        for label in by_text[key]:
+            if label not in exact:  # a stratum of one wave named in full wins
+                out[label] = prob
+        if key in map(str, labels):
+            exact.add(by_text[key][0])
     arms = data.arms()
     absent = [str(label) for label in labels if label not in out and len(arms[label]) == 2]
     if absent:
@@ -450,4 +464,5 @@ def run_spec(spec: Spec, data: GroupedData | Dataset, progress: Any = None) -> R
     return Run(spec, data, probabilities, tuple(results),
                tuple(data_warnings(spec, data) + fit_warnings(results)
                      + balance_warnings(profile)), profile, outcome_families(results),
-               randomization_family_test(spec, data, progress))
+               randomization_family_test(spec, data, progress),
+               wave_summary(spec, data, probabilities))

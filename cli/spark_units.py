@@ -29,6 +29,7 @@ from .units_sql import (
     roles_of,
     wanted_columns,
 )
+from .waves import centre_keys
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -112,7 +113,7 @@ def spark_group_frame(spec: Spec, centre_rows: int | None) -> tuple[Roles, pd.Da
             session.sql("\nUNION ALL\n".join(selects)).createOrReplaceTempView(UNITS_VIEW)
             views.append(UNITS_VIEW)
             ranged = (roles.probability,) if roles.probability else ()
-            sql = group_query(UNITS_VIEW, keys=roles.keys, centre_keys=roles.strata,
+            sql = group_query(UNITS_VIEW, keys=roles.keys, centre_keys=centre_keys(spec, roles),
                               outcomes=roles.outcomes,
                               covariates=roles.covariates + roles.indicators,
                               uncentred=roles.indicators,

@@ -32,6 +32,7 @@ from .spec_sensitivity import (
     randomization_options,
 )
 from .tables import DATA_SUFFIXES, FORMATS_TEXT
+from .waves import WAVE_KEYS, pool_option
 from .yamlmarks import KeyPath, compose_with_lines, dotted, line_of
 
 __all__ = [
@@ -61,6 +62,7 @@ _SECTIONS: dict[str, tuple[str, ...] | None] = {
     "reading": READING_KEYS,
     "engine": None,
     "sensitivity": SENSITIVITY_KEYS,
+    "waves": WAVE_KEYS,
 }
 _REQUIRED_COLUMNS = ("outcome", "take_up", "offer", "stratum")
 _GLOB_CHARS = set("*?[")
@@ -184,6 +186,9 @@ class Spec:
     randomization: tuple[int, int, float] | None = None
     """(draws, seed, null effect) of randomization inference (`inference.randomization`), or
     None."""
+    pool_waves: bool = False
+    """Whether a stratum pools its rows across the input files (`waves.pool`); by default
+    each file's part of a stratum is its own stratum (`waves.splits_strata`)."""
     lines: Mapping[KeyPath, int] = field(default_factory=dict, repr=False, compare=False)
     """Spec line of each key path, for messages raised after loading."""
 
@@ -228,6 +233,7 @@ class Spec:
             "sensitivity": {"direct_effect": None if self.direct_effect is None
                             else list(self.direct_effect),
                             "defier_share": list(self.defier_shares)},
+            "waves": {"pool": self.pool_waves},
         }
 
 
@@ -419,6 +425,7 @@ def load_spec(path: Path | str) -> Spec:
         direct_effect=direct_effect_range(path, lines, top.get("sensitivity")),
         defier_shares=defier_shares(path, lines, top.get("sensitivity")),
         randomization=randomization_options(path, lines, inference.get("randomization")),
+        pool_waves=pool_option(path, lines, top.get("waves")),
         lines=dict(lines),
     )
 

@@ -15,12 +15,13 @@ misses the complier-weighted LATE (weights n_s FS_s).
 
 Usage::
 
-    python demo_data/generate.py [--out DIR]
+    python demo_data/generate.py [--out DIR] [--round N]
 
 writes ``round_1.csv``, ``round_2.csv``, ``round_3.csv`` and ``truth.json`` into DIR
-(default: the directory of this script). The output depends only on ``SEED``; CSV floats
-use a fixed format and every truth number is a correctly rounded sum (``math.fsum``), so
-the files are byte-stable.
+(default: the directory of this script); with ``--round N`` (4 to 9) only ``round_N.csv``, a
+later round drawn with its own seed, as a new wave of data arriving. The output depends only
+on ``SEED``; CSV floats use a fixed format and every truth number is a correctly rounded sum
+(``math.fsum``), so the files are byte-stable.
 """
 
 from __future__ import annotations
@@ -31,7 +32,7 @@ import math
 import os
 import sys
 import tempfile
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -44,6 +45,7 @@ __all__ = [
     "District",
     "Sample",
     "generate",
+    "later_round",
     "main",
     "round_csv",
     "simulate",
@@ -447,6 +449,32 @@ def generate(out_dir: Path, *, seed: int = SEED) -> None:
     _write_atomic(out_dir / "truth.json", truth_json(sample, seed))
 
 
+def later_round(number: int, *, seed: int = SEED) -> str:
+    """Return the CSV text of a later lottery round (4, 5, ...), as a new wave of data.
+
+    The round is the third round's design (same districts, odds and sizes) drawn with the
+    seed ``seed + number``, so every later round differs from the first three and from each
+    other. Building ids start at ``number × 10,000`` to stay unique across rounds.
+
+    Parameters
+    ----------
+    number : int
+        Round number, 4 or more (at most 9, to keep five-digit building ids).
+    seed : int, default=SEED
+        Base seed.
+
+    Returns
+    -------
+    str
+        As `round_csv`.
+    """
+    if not 4 <= number <= 9:
+        raise ValueError(f"later rounds are numbered 4 to 9, not {number}")
+    sample = simulate(seed + number)
+    later = replace(sample, building_id=sample.building_id + number * 10_000)
+    return round_csv(later, len(ROUND_FILES))
+
+
 def main(argv: list[str] | None = None) -> int:
     """Command-line entry point; returns the exit code."""
     parser = argparse.ArgumentParser(
@@ -458,8 +486,25 @@ def main(argv: list[str] | None = None) -> int:
         default=Path(__file__).resolve().parent,
         help="output directory (default: the directory of this script)",
     )
+    parser.add_argument(
+        "--round",
+        type=int,
+        default=None,
+        metavar="N",
+        help="write only round_N.csv, a later round (4 to 9) arriving as a new wave",
+    )
     args = parser.parse_args(argv)
     try:
+        if args.round is not None:
+            try:
+                text = later_round(args.round)
+            except ValueError as error:
+                print(f"generate.py: {error}", file=sys.stderr)
+                return 2
+            args.out.mkdir(parents=True, exist_ok=True)
+            _write_atomic(args.out / f"round_{args.round}.csv", text)
+            print(f"wrote round_{args.round}.csv to {args.out}")
+            return 0
         generate(args.out)
     except OSError as error:
         print(f"generate.py: cannot write demo data: {error}", file=sys.stderr)

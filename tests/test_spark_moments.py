@@ -236,9 +236,11 @@ def test_the_printed_cells_query_on_spark_feeds_a_moment_run(spark, tmp_path):
                                   spark_engine.SOURCE_VIEW])
     assert printed.exit_code == 0, printed.stderr
     table = tmp_path / "cells.csv"
-    spark_engine.run_query(printed.stdout,
-                           sorted(str(p) for p in DEMO_DIR.glob("round_*.csv"))).to_csv(
-        table, index=False)
+    # the demo's files are three waves: the user's table holds each row's wave
+    units = tmp_path / "units.csv"
+    pd.concat([pd.read_csv(p).assign(wave=p.stem)
+               for p in sorted(DEMO_DIR.glob("round_*.csv"))]).to_csv(units, index=False)
+    spark_engine.run_query(printed.stdout, [str(units)]).to_csv(table, index=False)
     spec = tmp_path / "demo.yaml"
     spec.write_text(demo_spec.read_text(encoding="utf-8").replace(
         "data: ../demo_data/round_*.csv", f"moments: {table}"), encoding="utf-8")

@@ -32,8 +32,9 @@ def test_check_prints_the_design_summary_without_writing(study: Study, invoke) -
 def test_check_on_the_demo_exits_0(invoke) -> None:
     result = invoke("check", DEMO_SPEC)
     assert result.exit_code == 0, result.stderr
-    # source: demo_data/README.md, ten districts with odds 0.20 to 0.80
-    assert "strata    10 (10 with both arms); offer share 20.0% to 80.0%" in result.stdout
+    # source: demo_data/README.md, ten districts with odds 0.20 to 0.80 drawn separately in
+    # each of three rounds (one file each), so 30 strata; realized shares round around the odds
+    assert "strata    30 (30 with both arms); offer share 19.6% to 80.1%" in result.stdout
 
 
 def test_version_prints_the_package_version(invoke) -> None:

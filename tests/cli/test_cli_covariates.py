@@ -41,9 +41,12 @@ def demo(tmp_path_factory):
 
 def test_the_demo_shows_adjusted_estimates_equal_to_the_core(demo) -> None:
     doc, _ = demo
-    rows = pd.concat([pd.read_csv(p) for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
+    rows = pd.concat([pd.read_csv(p).assign(wave=p.stem)
+                      for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
     for outcome in ("gas_therms", "behind_on_bills"):
-        frame = pd.DataFrame({"s": rows["district"], "z": rows["won_lottery"],
+        # the run's strata: district x wave (one file per lottery round)
+        frame = pd.DataFrame({"s": rows["district"] + " / " + rows["wave"],
+                              "z": rows["won_lottery"],
                               "d": rows["retrofitted"], "y": rows[outcome],
                               **{x: rows[x].astype(float) for x in DEMO_COVARIATES}})
         m = moments_of(frame.reset_index(drop=True), DEMO_COVARIATES)

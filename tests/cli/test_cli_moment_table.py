@@ -19,7 +19,9 @@ from cli_support import MINIMAL_SPEC, REPO, Study, assert_clean_failure, study_r
 from strativ.cli.moment_table import MOMENT_FIELDS
 
 DEMO_SPEC = REPO / "specs" / "demo.yaml"
-ROW_ONLY = ("created", "spec", "inputs")
+ROW_ONLY = ("created", "spec", "inputs", "waves")
+"""Fields a moment-table run cannot share: its own file and spec, and the fits of each input
+file's wave alone (the table holds each stratum's wave, not the files)."""
 
 
 def _moment_spec(spec: Path, table: Path, folder: Path) -> Path:
@@ -58,6 +60,10 @@ def test_a_moment_table_run_equals_the_row_run_exactly(tmp_path: Path, invoke,
     assert table_doc == rows_doc
     doc = json.loads((table_out / "results.json").read_text(encoding="utf-8"))
     assert doc["spec"]["data_kind"] == "moments"
+    # by construction: the demo's three files split each district into three strata, and
+    # the table keeps each stratum's wave as a stratum column
+    assert doc["strata"][0]["stratum_columns"] == {"district": "Cedar Flats", "wave": "round_1"}
+    assert doc["waves"] is None
     assert [f["file"] for f in doc["inputs"]] == [table.name]
     # by construction: the demo names three covariates, carried by the table
     assert [c["covariate"] for c in doc["covariates"]["covariates"]] == \
@@ -101,12 +107,14 @@ def test_the_printed_query_run_by_duckdb_gives_the_table(tmp_path: Path, invoke)
     assert printed.exit_code == 0, printed.stderr
     table = tmp_path / "cells.csv"
     assert invoke("cells", DEMO_SPEC, "--out", table).exit_code == 0
-    units = pd.concat([pd.read_csv(p) for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
+    # the demo's three files are three waves: the user's table carries each row's wave
+    units = pd.concat([pd.read_csv(p).assign(wave=p.stem)
+                       for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
     connection = duckdb.connect()
     connection.register("units", units)
     got = connection.execute(printed.stdout).df()
     want = pd.read_csv(table)
-    keys = ["district", "won_lottery", "retrofitted"]
+    keys = ["district", "wave", "won_lottery", "retrofitted"]
     got = got.groupby(keys).sum(numeric_only=False).sort_index()
     want = want.groupby(keys).agg("sum").sort_index()
     assert list(got.index) == list(want.index)

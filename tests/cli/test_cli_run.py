@@ -63,7 +63,8 @@ def test_demo_runs_and_prints_the_comparison(demo) -> None:
         )
         for line in lines
     )
-    assert any(line.startswith("6,000 rows, 10 strata used, 0 excluded") for line in lines)
+    # source: demo_data/README.md, ten districts, each drawn separately in three rounds
+    assert any(line.startswith("6,000 rows, 30 strata used, 0 excluded") for line in lines)
     for name in ("fixed effects", "weighted (IPW)", "interacted"):
         assert any(line.startswith(name + " ") for line in lines), name
     flat = " ".join(result.stdout.split())

@@ -204,8 +204,13 @@ def documents(tmp_path_factory: pytest.TempPathFactory) -> dict[str, dict[str, A
         writer.writeheader()
         writer.writerows(rows)
     (root / "rounds.yaml").write_text(VARIANT_SPEC, encoding="utf-8")
+    # the demo with its rounds pooled into district strata: the offer-share test is filled
+    pooled = DEMO_SPEC.read_text(encoding="utf-8").replace(
+        "../demo_data/", f"{DEMO_SPEC.parent.parent / 'demo_data'}/") + "waves:\n  pool: true\n"
+    (root / "pooled.yaml").write_text(pooled, encoding="utf-8")
     return {"demo": _run(DEMO_SPEC, root / "demo_out"),
-            "rounds": _run(root / "rounds.yaml", root / "rounds_out")}
+            "rounds": _run(root / "rounds.yaml", root / "rounds_out"),
+            "pooled": _run(root / "pooled.yaml", root / "pooled_out")}
 
 
 def test_every_property_of_the_schema_has_a_description() -> None:
@@ -228,7 +233,7 @@ def test_the_walk_finds_a_missing_description() -> None:
     ]
 
 
-@pytest.mark.parametrize("name", ["demo", "rounds"])
+@pytest.mark.parametrize("name", ["demo", "rounds", "pooled"])
 def test_every_key_of_a_real_results_file_is_described(documents, name: str) -> None:
     schema = load_schema()
     doc = documents[name]

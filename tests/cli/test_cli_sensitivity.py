@@ -33,7 +33,9 @@ def test_the_range_and_the_delta_to_zero_follow_the_definition(tmp_path) -> None
     assert done.exit_code == 0, done.stderr
     doc = json.loads((tmp_path / "out" / "results.json").read_text(encoding="utf-8"))
     assert doc["spec"]["sensitivity"] == {"direct_effect": [-20.0, 30.0], "defier_share": []}
-    rows = pd.concat([pd.read_csv(p) for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
+    rows = pd.concat([pd.read_csv(p).assign(wave=p.stem)
+                      for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
+    strata = (rows["district"] + " / " + rows["wave"]).to_numpy(object)  # district x wave
     sens = doc["comparisons"][0]["sensitivity"]
     # by construction: the demo's reported complier estimator (no design probabilities)
     assert sens["estimator"] == "interacted"
@@ -41,7 +43,7 @@ def test_the_range_and_the_delta_to_zero_follow_the_definition(tmp_path) -> None
     def reference(delta):
         y = rows["gas_therms"].to_numpy() - delta * rows["won_lottery"].to_numpy()
         return fit(build_cells(y, rows["retrofitted"].to_numpy(), rows["won_lottery"].to_numpy(),
-                               rows["district"].to_numpy(object)), estimator="interacted")
+                               strata), estimator="interacted")
 
     assert [r["delta"] for r in sens["rows"]] == [-20.0, 0.0, 30.0]
     for row in sens["rows"]:
