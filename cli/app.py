@@ -282,9 +282,10 @@ def compare(
 
 @app.command()
 def init(
-    data: Annotated[Path, typer.Argument(exists=True, dir_okay=False, readable=True,
-                                         show_default=False, metavar="DATA",
-                                         help="A data file to inspect.")],
+    data: Annotated[list[str], typer.Argument(
+        show_default=False, metavar="DATA...",
+        help="Data files to inspect, or a quoted glob such as 'data/round_*.csv'; several "
+        "files are the trial's waves.")],
     output: Annotated[Path, typer.Option(
         "--output", "-o", dir_okay=False,
         help="Where to write the starter spec; an existing file is never overwritten.")]
@@ -292,17 +293,14 @@ def init(
 ) -> None:
     """Inspect DATA and write a starter spec, filling in only the roles the data make clear.
 
-    Example:  strativ init demo_data/round_1.csv --output my_study.yaml
+    Example:  strativ init 'demo_data/round_*.csv' --output my_study.yaml
     """
     with _boundary() as err:
-        from .starter import starter_spec, write_new_file
-        from .tables import DATA_SUFFIXES, FORMATS_TEXT
+        from .starter import data_files, starter_spec, write_new_file
 
-        if not data.name.lower().endswith(DATA_SUFFIXES):
-            raise UsageError(f"{data.name} is not a data file strativ reads",
-                             f"strativ reads files ending in {FORMATS_TEXT}")
+        files = data_files(data)
         target = output.expanduser()
-        write_new_file(target, starter_spec(data, target))
+        write_new_file(target, starter_spec(files, target))
         err.print(Text.assemble("wrote ", Text(str(target)), "; fill in the commented roles, "
                                 "then run: strativ check ", Text(str(target))))
 

@@ -28,7 +28,7 @@ from .files import temporary_file
 from .tables import read_table
 from .values import parse_binary, parse_number
 
-__all__ = ["ColumnProfile", "profile_columns", "starter_spec", "write_new_file"]
+__all__ = ["ColumnProfile", "data_files", "profile_columns", "starter_spec", "write_new_file"]
 
 _MAX_LEVELS = 50
 _PLAIN = re.compile(r"[A-Za-z_][A-Za-z0-9_.\-]*")
@@ -133,7 +133,41 @@ def _option(option: str, values: tuple[str, ...], *, indent: int) -> list[str]:
             *_described(option, values, indent)]
 
 
-def starter_spec(data: Path, spec_path: Path) -> str:
+def data_files(entries: list[str]) -> list[Path]:
+    """The data files `strativ init` was given: paths or globs, each matching a regular file
+    strativ reads, in the order given (a glob's matches sorted), each once.
+
+    Raises
+    ------
+    UsageError
+        For an entry that names no file, or a file strativ does not read.
+    """
+    import glob
+
+    from .tables import DATA_SUFFIXES, FORMATS_TEXT
+
+    out: list[Path] = []
+    for entry in entries:
+        path = Path(entry).expanduser()
+        if path.is_file():
+            matches = [path]
+        elif set("*?[") & set(entry):
+            matches = sorted(Path(m) for m in glob.glob(str(path)) if Path(m).is_file())
+            if not matches:
+                raise UsageError(f"the pattern '{entry}' matches no file",
+                                 "check the folder and the pattern (quote it in the shell)")
+        else:
+            raise UsageError(f"{entry} is not a file", "give a data file or a quoted glob")
+        for match in matches:
+            if not match.name.lower().endswith(DATA_SUFFIXES):
+                raise UsageError(f"{match.name} is not a data file strativ reads",
+                                 f"strativ reads files ending in {FORMATS_TEXT}")
+            if match.resolve() not in [p.resolve() for p in out]:
+                out.append(match)
+    return out
+
+
+def starter_spec(files: list[Path] | Path, spec_path: Path) -> str:
     """Return the text of a starter spec for `data`, to be saved at `spec_path`.
 
     Parameters
@@ -148,11 +182,14 @@ def starter_spec(data: Path, spec_path: Path) -> str:
     str
         YAML text with the found roles filled in and the others as commented placeholders.
     """
+    files = [files] if isinstance(files, Path) else list(files)
+    data = files[0]
     profiles = [p for p in profile_columns(data) if p.name]
     binary = [p for p in profiles if p.kind == "binary"]
     numeric = [p for p in profiles if p.kind == "numeric" and not p.few_levels]
     grouped = [p for p in profiles if p.few_levels]
-    rel = os.path.relpath(data.resolve(), spec_path.resolve().parent)
+    rels = [os.path.relpath(f.resolve(), spec_path.resolve().parent) for f in files]
+    rel = rels[0] if len(rels) == 1 else "[" + ", ".join(_scalar(r) for r in rels) + "]"
     shown = {p.name: _scalar(p.name) for p in profiles}  # one line each, even with "\n"
     width = max(len(text) for text in shown.values()) if profiles else 0
     out = [
@@ -164,7 +201,8 @@ def starter_spec(data: Path, spec_path: Path) -> str:
         *[f"#   {shown[p.name].ljust(width)}  {p.describe()}" for p in profiles],
         "",
         f"title: {_scalar(data.stem)}",
-        f"data: {_scalar(rel)}   # a file, a list of files, or a glob such as \"round_*.csv\"",
+        f"data: {_scalar(rel) if len(rels) == 1 else rel}   # a file, a list of files, or a glob "
+        "such as \"round_*.csv\"",
         "",
         "columns:",
         f"  # outcome: <column>    # or a list; numeric columns: {_names(numeric + binary)}",
