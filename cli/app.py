@@ -150,6 +150,12 @@ def run(
     if_changed: Annotated[bool, typer.Option(
         "--if-changed", help="Do nothing (exit 0) when the inputs, the spec and the strativ "
         "version equal those of the last run recorded in the output folder.")] = False,
+    blind: Annotated[bool, typer.Option(
+        "--blind", help="Blinded rehearsal: permute each outcome within strata before "
+        "fitting, so the whole pipeline runs without showing the effect; every screen and "
+        "file says BLINDED.")] = False,
+    blind_seed: Annotated[int, typer.Option(
+        "--blind-seed", help="Seed of the permutation of --blind.")] = 1,
     fail_on: Annotated[list[str] | None, typer.Option(
         "--fail-on", show_default=False, metavar="CONDITION",
         help="Exit 4 after writing the results when CONDITION holds; repeatable. "
@@ -171,6 +177,7 @@ def run(
                            formats=tuple(dict.fromkeys(f.value for f in formats))
                            if formats else None,
                            if_changed=if_changed, gates=gates, err=err,
+                           blind_seed=blind_seed if blind else None,
                            console=None if quiet else make_console())
         if code:
             raise typer.Exit(code)

@@ -37,7 +37,7 @@ def spec_hash(resolved_spec: dict[str, Any]) -> str:
 
 
 def state_of(resolved_spec: dict[str, Any], inputs: list[tuple[str, str]],
-             version: str) -> dict[str, Any]:
+             version: str, *, blinded: int | None = None) -> dict[str, Any]:
     """What decides whether a rerun can change anything: spec hash, inputs, version.
 
     Parameters
@@ -48,15 +48,18 @@ def state_of(resolved_spec: dict[str, Any], inputs: list[tuple[str, str]],
         (file name, sha256) of each input, in the spec's order.
     version : str
         The strativ version.
+    blinded : int, optional
+        The permutation seed of a blinded rehearsal (None: the real outcomes).
 
     Returns
     -------
     dict
-        ``{"spec_sha256": ..., "inputs": [[name, sha256], ...], "tool_version": ...}``.
+        ``{"spec_sha256": ..., "inputs": [[name, sha256], ...], "tool_version": ...,
+        "blinded_seed": ...}``.
     """
     return {"spec_sha256": spec_hash(resolved_spec),
             "inputs": [[name, digest] for name, digest in inputs],
-            "tool_version": version}
+            "tool_version": version, "blinded_seed": blinded}
 
 
 def run_record(document: dict[str, Any]) -> dict[str, Any]:
@@ -73,14 +76,15 @@ def run_record(document: dict[str, Any]) -> dict[str, Any]:
         Time, state (`state_of`), input fingerprints, rows, main and adjusted estimates.
     """
     inputs = document["inputs"]
+    blinded = document.get("blinded")
     state = state_of(document["spec"], [(f["file"], f["sha256"]) for f in inputs],
-                     document["tool"]["version"])
+                     document["tool"]["version"],
+                     blinded=None if blinded is None else blinded["seed"])
     return {
         "created": document["created"],
         **state,
         "files": [{k: f[k] for k in ("file", "size_bytes", "sha256", "rows")} for f in inputs],
         "rows_kept": document["rows"]["kept"],
-        "blinded": bool(document.get("blinded", False)),
         "estimates": [{k: e[k] for k in _ESTIMATE_KEYS} for e in document["estimates"]],
         "adjusted_estimates": [
             {"outcome": e["outcome"], "estimator": e["fit"]["estimator"],

@@ -36,7 +36,7 @@ from .reading import (
     pulling_strata,
     reading,
 )
-from .runner import DesignSummary, OutcomeResult, Run
+from .runner import BLINDED, DesignSummary, OutcomeResult, Run
 from .spec import Spec
 
 __all__ = ["FULL_STRATA", "make_console", "render_run", "render_check", "render_warnings",
@@ -364,6 +364,9 @@ def render_run(console: Console, run: Run) -> None:
     run : Run
         The fitted run.
     """
+    if run.blinded is not None:
+        console.print(Text(BLINDED.format(seed=run.blinded), style="bold reverse"))
+        console.print()
     _header(console, run.spec, run.dataset)
     for result in run.outcomes:
         _outcome(console, result)
@@ -377,6 +380,8 @@ def render_run(console: Console, run: Run) -> None:
     console.print()
     console.print(_t(ASSUMPTIONS))
     console.print(_t(REVIEW))
+    if run.blinded is not None:
+        console.print(Text(BLINDED.format(seed=run.blinded), style="bold reverse"))
 
 
 def render_check(console: Console, spec: Spec, dataset: GroupedData, summary: DesignSummary,

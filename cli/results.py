@@ -91,12 +91,13 @@ def strata_csv_columns(run: Run) -> tuple[str, ...]:
     tuple of str
         The column names, in order.
     """
+    tail = ("blinded",) if run.blinded is not None else ()
     if not run.dataset.stratum_parts:
-        return STRATA_COLUMNS
+        return STRATA_COLUMNS + tail
     parts = tuple(f"stratum.{name}" if name in STRATA_COLUMNS else name
                   for name in part_names(run.spec, run.dataset))
     at = STRATA_COLUMNS.index("stratum") + 1
-    return STRATA_COLUMNS[:at] + parts + STRATA_COLUMNS[at:]
+    return STRATA_COLUMNS[:at] + parts + STRATA_COLUMNS[at:] + tail
 
 
 def tool_version() -> str:
@@ -274,6 +275,10 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
         "multiple_outcomes": [f.to_dict() for f in run.families],
         "randomization_outcomes": None if run.randomization_family is None
         else run.randomization_family.to_dict(),
+        "blinded": None if run.blinded is None else {
+            "seed": run.blinded,
+            "note": "BLINDED rehearsal: each outcome permuted within strata; every estimate "
+                    "targets zero and none is a result"},
         "waves": None if run.waves is None else run.waves.to_dict(),
         "warnings": list(run.warnings),
     }
@@ -306,7 +311,8 @@ def strata_table(run: Run) -> str:
     header = strata_csv_columns(run)
     writer.writerow(header)
     at = STRATA_COLUMNS.index("stratum") + 1
-    names = header[at:at + len(header) - len(STRATA_COLUMNS)]
+    names = header[at:at + len(run.dataset.stratum_parts and part_names(run.spec, run.dataset))]
+    mark = {"blinded": True} if run.blinded is not None else {}
 
     def parts(label: Any) -> dict[str, Any]:
         values = run.dataset.stratum_parts.get(label, ())
@@ -316,11 +322,12 @@ def strata_table(run: Run) -> str:
         table = result.comparison.strata.to_dict()
         for row in table["rows"]:
             record = {"outcome": result.outcome, "stratum": row["label"], "used": True,
-                      "exclusion_reason": None, **row, **parts(row["label"])}
+                      "exclusion_reason": None, **row, **parts(row["label"]), **mark}
             writer.writerow([_cell(record.get(c)) for c in header])
         for row in table["excluded"]:
             record = {"outcome": result.outcome, "stratum": row["label"], "used": False,
-                      "exclusion_reason": row["reason"], "n": row["n"], **parts(row["label"])}
+                      "exclusion_reason": row["reason"], "n": row["n"], **parts(row["label"]),
+                      **mark}
             writer.writerow([_cell(record.get(c)) for c in header])
     return buffer.getvalue()
 

@@ -142,6 +142,9 @@ class Run:
     waves: WaveSummary | None = None
     """The input files as waves: strata rule, pooled-share test, each wave fitted alone
     (None with one input file)."""
+    blinded: int | None = None
+    """Seed of the within-strata permutation of the outcomes in a blinded rehearsal (None:
+    the real outcomes)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -430,7 +433,13 @@ def check_with_core(spec: Spec, data: GroupedData,
     return offer_count_warnings(name, result.comparison)
 
 
-def run_spec(spec: Spec, data: GroupedData | Dataset, progress: Any = None) -> Run:
+BLINDED = ("BLINDED rehearsal: each outcome was permuted within strata (seed {seed}), so "
+           "every estimate targets zero; these numbers are not results")
+"""The line every screen and file of a blinded run carries."""
+
+
+def run_spec(spec: Spec, data: GroupedData | Dataset, progress: Any = None, *,
+             blinded: int | None = None) -> Run:
     """Fit every estimator of `spec` on every outcome.
 
     Parameters
@@ -440,6 +449,9 @@ def run_spec(spec: Spec, data: GroupedData | Dataset, progress: Any = None) -> R
     data : GroupedData or Dataset
         The run's data as group moments (`grouped.group_data`), or rows already read by
         the row reader (`loading.load_data`), which are grouped first.
+    blinded : int, optional
+        The seed, when the outcomes of `data` were permuted within strata
+        (`strativ.estimators.blinding`); recorded and said on every output.
 
     Returns
     -------
@@ -461,8 +473,9 @@ def run_spec(spec: Spec, data: GroupedData | Dataset, progress: Any = None) -> R
     results = [_fit_outcome(spec, data, name, probabilities, progress)
                for name in data.outcomes]
     profile = run_profile(data, probabilities)
+    banner = [] if blinded is None else [BLINDED.format(seed=blinded)]
     return Run(spec, data, probabilities, tuple(results),
-               tuple(data_warnings(spec, data) + fit_warnings(results)
+               tuple(banner + data_warnings(spec, data) + fit_warnings(results)
                      + balance_warnings(profile)), profile, outcome_families(results),
                randomization_family_test(spec, data, progress),
-               wave_summary(spec, data, probabilities))
+               wave_summary(spec, data, probabilities), blinded)

@@ -6,7 +6,8 @@ The command in `app.py` parses arguments; this module does the steps in order:
 2. with ``--if-changed``, compare the inputs' fingerprints, the resolved spec's hash and the
    tool version with the last record of the folder's history; when all are equal and the
    result files are still there, say so in one line and stop (exit 0);
-3. group the data and fit; print the report (unless quiet);
+3. group the data (with ``--blind``: read the rows and permute each outcome within strata)
+   and fit; print the report (unless quiet);
 4. write the result files atomically, then append the run's record to the history;
 5. print the warnings (always, on stderr: ``--quiet`` drops the report, never a warning);
 6. check the ``--fail-on`` gates on the written results; a failing gate gives exit 4.
@@ -15,7 +16,7 @@ The command in `app.py` parses arguments; this module does the steps in order:
 from __future__ import annotations
 
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from rich.text import Text
 
@@ -32,7 +33,7 @@ __all__ = ["run_command"]
 
 
 def _unchanged(spec: Spec, out_dir: Path, formats: tuple[str, ...],
-               history: History) -> dict | None:
+               history: History, blinded: int | None) -> dict | None:
     """The last record when a rerun could change nothing, else None."""
     from .history import state_of
     from .loading import _distinct_digests
@@ -46,9 +47,26 @@ def _unchanged(spec: Spec, out_dir: Path, formats: tuple[str, ...],
     digests = _distinct_digests(spec)
     now = state_of(resolved_spec(spec, out_dir=out_dir, formats=formats),
                    [(p.name, d) for p, d in zip(spec.data, digests, strict=True)],
-                   tool_version())
+                   tool_version(), blinded=blinded)
     same = all(last.get(k) == v for k, v in now.items())
     return last if same else None
+
+
+def _blinded(spec: Spec, seed: int) -> Any:
+    """The run's data with each outcome permuted within strata (read row by row)."""
+    from dataclasses import replace
+
+    from strativ.estimators.blinding import blind_outcomes
+
+    from .grouped import from_rows
+    from .loading import load_data
+
+    if spec.data_kind != "rows":
+        raise UsageError("a blinded rehearsal permutes unit rows, and this spec reads a "
+                         "moment table", "run --blind on the spec that reads the rows")
+    rows = load_data(spec)
+    return from_rows(spec, replace(rows, outcomes=blind_outcomes(rows.stratum, rows.outcomes,
+                                                                 seed=seed)))
 
 
 def _history_notes(history: History) -> list[str]:
@@ -59,7 +77,7 @@ def _history_notes(history: History) -> list[str]:
 
 def run_command(spec_path: Path, *, out: Path | None, quiet: bool,
                 formats: tuple[str, ...] | None, if_changed: bool, gates: tuple[Gate, ...],
-                err: Console, console: Console | None) -> int:
+                err: Console, console: Console | None, blind_seed: int | None = None) -> int:
     """Run the spec at `spec_path` as `strativ run` does; return the exit code.
 
     Parameters
@@ -80,6 +98,8 @@ def run_command(spec_path: Path, *, out: Path | None, quiet: bool,
         Standard error.
     console : Console or None
         Standard output for the report (None when quiet).
+    blind_seed : int, optional
+        Run a blinded rehearsal: the outcomes permuted within strata with this seed.
 
     Returns
     -------
@@ -110,13 +130,14 @@ def run_command(spec_path: Path, *, out: Path | None, quiet: bool,
                          "make the output folder readable, or choose another with --out") \
             from None
     if if_changed:
-        last = _unchanged(loaded, out_dir, chosen, history)
+        last = _unchanged(loaded, out_dir, chosen, history, blind_seed)
         if last is not None:
             err.print(f"unchanged since the run of {last.get('created', '?')}: same inputs, "
                       f"spec and strativ version; {out_dir} left as it is")
             return 0
+    data = group_data(loaded) if blind_seed is None else _blinded(loaded, blind_seed)
     with draw_progress(err, enabled=not quiet and loaded.randomization is not None) as bar:
-        result = run_spec(loaded, group_data(loaded), progress=bar)
+        result = run_spec(loaded, data, progress=bar, blinded=blind_seed)
     if console is not None:
         render_run(console, result)
     document = results_document(result, out_dir=out_dir, formats=chosen)

@@ -188,8 +188,8 @@ def _variant_rows() -> list[dict[str, Any]]:
     return rows
 
 
-def _run(spec: Path, out: Path) -> dict[str, Any]:
-    result = CliRunner().invoke(app, ["run", str(spec), "--out", str(out)], env=ENV)
+def _run(spec: Path, out: Path, *extra: str) -> dict[str, Any]:
+    result = CliRunner().invoke(app, ["run", str(spec), "--out", str(out), *extra], env=ENV)
     assert result.exit_code == 0, result.output
     return json.loads((out / "results.json").read_text(encoding="utf-8"))
 
@@ -204,13 +204,14 @@ def documents(tmp_path_factory: pytest.TempPathFactory) -> dict[str, dict[str, A
         writer.writeheader()
         writer.writerows(rows)
     (root / "rounds.yaml").write_text(VARIANT_SPEC, encoding="utf-8")
-    # the demo with its rounds pooled into district strata: the offer-share test is filled
+    # the demo with its rounds pooled into district strata, blinded: the offer-share test and
+    # the blinding record are filled
     pooled = DEMO_SPEC.read_text(encoding="utf-8").replace(
         "../demo_data/", f"{DEMO_SPEC.parent.parent / 'demo_data'}/") + "waves:\n  pool: true\n"
     (root / "pooled.yaml").write_text(pooled, encoding="utf-8")
     return {"demo": _run(DEMO_SPEC, root / "demo_out"),
             "rounds": _run(root / "rounds.yaml", root / "rounds_out"),
-            "pooled": _run(root / "pooled.yaml", root / "pooled_out")}
+            "pooled": _run(root / "pooled.yaml", root / "pooled_out", "--blind")}
 
 
 def test_every_property_of_the_schema_has_a_description() -> None:
