@@ -1,4 +1,4 @@
-"""The `strativ` command: run, check, cells, compare, init, --version.
+"""The `strativ` command: run, check, cells, compare, lock, init, --version.
 
 Command functions are thin: they convert arguments, call the library, render and write. One
 boundary (`_boundary`) turns every error into a message on stderr and an exit code, so no
@@ -160,7 +160,7 @@ def run(
         "--fail-on", show_default=False, metavar="CONDITION",
         help="Exit 4 after writing the results when CONDITION holds; repeatable. "
         "Conditions: first-stage-f<X, gap>X (standard errors), excluded-strata, "
-        "balance.")] = None,
+        "balance, deviation (from the spec's locked plan).")] = None,
 ) -> None:
     """Fit the estimators of SPEC, print the comparison and write the result files.
 
@@ -285,6 +285,33 @@ def compare(
         render_comparison(make_console(), report, fail_beyond=fail_beyond)
         if code:
             raise typer.Exit(code)
+
+
+@app.command()
+def lock(spec: SpecArg) -> None:
+    """Lock the analysis plan of SPEC before outcomes are seen: its options, the strativ
+    version and the fingerprints of the data files present now go to <spec>.lock.json, and
+    every later run of SPEC reports each deviation from them.
+
+    Example:  strativ lock specs/trial.yaml
+    """
+    with _boundary() as err:
+        from .loading import _distinct_digests
+        from .plan_lock import write_lock
+        from .results import tool_version
+        from .spec import load_spec
+
+        loaded = load_spec(spec)
+        if loaded.data_kind != "rows":
+            raise UsageError("a plan is locked on the unit rows' files, and this spec reads "
+                             "a moment table", "lock the spec that reads the rows")
+        digests = _distinct_digests(loaded)
+        inputs = [(p, p.stat().st_size, d) for p, d in zip(loaded.data, digests, strict=True)]
+        target = write_lock(loaded, inputs, tool_version())
+        err.print(Text.assemble("locked the plan of ", Text(loaded.path.name), " in ",
+                                Text(str(target)), f" with {len(inputs)} baseline "
+                                f"{'file' if len(inputs) == 1 else 'files'}; every run of "
+                                "the spec now reports its deviations from it"))
 
 
 @app.command()

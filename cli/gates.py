@@ -8,7 +8,8 @@ conditions, as given to ``--fail-on`` (repeatable):
 - ``gap>X``: the fixed-effects and complier-weighted estimates of an outcome differ by more
   than X standard errors of their difference;
 - ``excluded-strata``: any stratum was left out of an estimator;
-- ``balance``: any covariate's standardized mean difference is flagged.
+- ``balance``: any covariate's standardized mean difference is flagged;
+- ``deviation``: the run deviates from the spec's locked plan (`strativ lock`).
 """
 
 from __future__ import annotations
@@ -32,12 +33,13 @@ GATES: dict[str, str] = {
              "errors",
     "excluded-strata": "a stratum was left out of an estimator",
     "balance": "a covariate's standardized mean difference is flagged",
+    "deviation": "the run deviates from the spec's locked plan",
 }
 """Each condition ``--fail-on`` accepts, with what makes it fail."""
 
 _PATTERN = re.compile(r"^\s*(first-stage-f\s*<|gap\s*>)\s*([0-9]*\.?[0-9]+(?:[eE][-+]?[0-9]+)?)"
                       r"\s*$"
-                      r"|^\s*(excluded-strata|balance)\s*$")
+                      r"|^\s*(excluded-strata|balance|deviation)\s*$")
 
 
 @dataclass(frozen=True, slots=True)
@@ -45,7 +47,7 @@ class Gate:
     """One parsed ``--fail-on`` condition."""
 
     name: str
-    """``first-stage-f``, ``gap``, ``excluded-strata`` or ``balance``."""
+    """``first-stage-f``, ``gap``, ``excluded-strata``, ``balance`` or ``deviation``."""
     threshold: float | None
     """The number of the condition (None for conditions without one)."""
 
@@ -126,9 +128,14 @@ def _balance(gate: Gate, doc: dict[str, Any]) -> list[str]:
             for c in profile.get("covariates", []) if c.get("flagged")]
 
 
+def _deviation(gate: Gate, doc: dict[str, Any]) -> list[str]:
+    plan = doc.get("plan") or {}
+    return list(plan.get("deviations", []))
+
+
 _CHECKS: dict[str, Callable[[Gate, dict[str, Any]], list[str]]] = {
     "first-stage-f": _first_stage, "gap": _gap, "excluded-strata": _excluded,
-    "balance": _balance,
+    "balance": _balance, "deviation": _deviation,
 }
 
 

@@ -187,7 +187,8 @@ def _now() -> str:
 
 
 def results_document(run: Run, *, created: str | None = None, out_dir: Path | None = None,
-                     formats: tuple[str, ...] | None = None) -> dict[str, Any]:
+                     formats: tuple[str, ...] | None = None,
+                     plan: dict[str, Any] | None = None) -> dict[str, Any]:
     """Assemble the contents of results.json.
 
     Parameters
@@ -201,6 +202,8 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
         when the command line overrode it).
     formats : tuple of str, optional
         Output formats actually written (likewise).
+    plan : dict, optional
+        The run checked against the spec's locked plan (`plan_lock.PlanCheck.to_dict`).
 
     Returns
     -------
@@ -275,6 +278,7 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
         "multiple_outcomes": [f.to_dict() for f in run.families],
         "randomization_outcomes": None if run.randomization_family is None
         else run.randomization_family.to_dict(),
+        "plan": plan,
         "blinded": None if run.blinded is None else {
             "seed": run.blinded,
             "note": "BLINDED rehearsal: each outcome permuted within strata; every estimate "

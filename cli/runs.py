@@ -114,8 +114,9 @@ def run_command(spec_path: Path, *, out: Path | None, quiet: bool,
     from .console import draw_progress
     from .grouped import group_data
     from .history import append_record, read_history, run_record
+    from .plan_lock import check_plan
     from .render import render_run, render_warnings
-    from .results import check_output_paths, results_document, write_outputs
+    from .results import check_output_paths, results_document, tool_version, write_outputs
     from .runner import run_spec
     from .spec import load_spec
 
@@ -140,9 +141,15 @@ def run_command(spec_path: Path, *, out: Path | None, quiet: bool,
         result = run_spec(loaded, data, progress=bar, blinded=blind_seed)
     if console is not None:
         render_run(console, result)
-    document = results_document(result, out_dir=out_dir, formats=chosen)
+    plan = check_plan(loaded, [(f.path.name, f.sha256) for f in result.dataset.files],
+                      tool_version())
+    document = results_document(result, out_dir=out_dir, formats=chosen,
+                                plan=None if plan is None else plan.to_dict())
     written = write_outputs(result, out_dir, chosen, document=document)
     notes = _history_notes(history)
+    if plan is not None:
+        notes += [f"deviation from the plan locked in {plan.lock} on {plan.locked}: {d}"
+                  for d in plan.deviations]
     try:
         append_record(out_dir, run_record(document), ends_cleanly=history.ends_cleanly)
     except OSError as exc:

@@ -204,6 +204,8 @@ def documents(tmp_path_factory: pytest.TempPathFactory) -> dict[str, dict[str, A
         writer.writeheader()
         writer.writerows(rows)
     (root / "rounds.yaml").write_text(VARIANT_SPEC, encoding="utf-8")
+    locked = CliRunner().invoke(app, ["lock", str(root / "rounds.yaml")], env=ENV)
+    assert locked.exit_code == 0, locked.output  # the run then reports against the plan
     # the demo with its rounds pooled into district strata, blinded: the offer-share test and
     # the blinding record are filled
     pooled = DEMO_SPEC.read_text(encoding="utf-8").replace(
