@@ -283,10 +283,26 @@ def _outcome(console: Console, result: OutcomeResult) -> None:
         console.print(_indented(_t(sentence)))
     _sensitivity(console, result)
     _randomization(console, result)
+    _planning(console, result)
     notes = list(comp.notes) + [f"{ESTIMATOR_NAMES[e.estimator]}: {n}"
                                 for e in comp.estimates for n in e.notes]
     for note in notes:
         console.print(_indented("note: ", _t(note)))
+
+
+def _planning(console: Console, result: OutcomeResult) -> None:
+    p = result.plan
+    if p is None or p.mde is None:
+        return
+    text = (f"planning: {ESTIMATOR_NAMES[p.estimator]} detects an effect of "
+            f"{format_number(p.mde)} or more with {p.power:.0%} power at the "
+            f"{p.level:.0%} level ({format_number(p.multiplier, digits=3)} standard errors)")
+    if p.target_effect is not None:
+        text += (f"; an effect of {format_number(p.target_effect)} needs about "
+                 f"{p.rows_needed:,} rows at today's complier share and variance ("
+                 + (f"{p.further_rows:,} more" if p.further_rows else "today's suffice")
+                 + ")")
+    console.print(_indented(_t(text)))
 
 
 def _smd_text(value: float | None, flag: float) -> str:

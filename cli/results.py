@@ -231,6 +231,7 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
             "sensitivity": None if result.sensitivity is None else result.sensitivity.to_dict(),
             "randomization": None if result.randomization is None
             else result.randomization.to_dict(),
+            "planning": None if result.plan is None else result.plan.to_dict(),
             "gap": comp["gap"],
             "size_weighted": comp["size_weighted"],
             "single_unit_cells": comp["strata"]["single_unit_cells"],

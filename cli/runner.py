@@ -25,6 +25,7 @@ from strativ.estimators import (
 )
 from strativ.estimators.adjust import AdjustedEstimate
 from strativ.estimators.attrition import AttritionTest, attrition_test
+from strativ.estimators.power import Plan, plan
 from strativ.estimators.profile import CovariateProfile
 from strativ.estimators.randomization import (
     RandomizationFamily,
@@ -115,6 +116,9 @@ class OutcomeResult:
     """The reported complier estimator under a direct effect of the offer."""
     randomization: RandomizationTest | None = None
     """Randomization p-value of no effect and interval (`inference.randomization`)."""
+    plan: Plan | None = None
+    """Minimum detectable effect of the reported complier estimator, and the rows the
+    spec's target effect needs (`planning`)."""
 
 
 @dataclass(frozen=True, slots=True, eq=False)
@@ -398,7 +402,19 @@ def _fit_outcome(spec: Spec, data: GroupedData, name: str,
                           g[f"n_{role}"].to_numpy())
     return OutcomeResult(name, cells, comparison, missing, _attrition(name, data), adjusted,
                          test, direct_effect(spec, data, name, comparison, mapping),
-                         randomization(spec, data, name, progress))
+                         randomization(spec, data, name, progress),
+                         _plan(spec, name, comparison))
+
+
+def _plan(spec: Spec, name: str, comparison: Comparison) -> Plan:
+    """The minimum detectable effect of the reported complier estimator (else the first)."""
+    by_name = {e.estimator: e for e in comparison.estimates}
+    chosen = comparison.gap.complier_estimator if comparison.gap is not None else next(
+        (e for e in ("weighted", "interacted") if e in by_name), comparison.estimates[0].estimator)
+    est = by_name[chosen]
+    return plan(estimator=chosen, standard_error=est.std_error, rows=est.n_units,
+                level=spec.level, power=spec.power, df=est.degrees_of_freedom,
+                target_effect=dict(spec.target_effects).get(name))
 
 
 def check_with_core(spec: Spec, data: GroupedData,

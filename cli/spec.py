@@ -24,6 +24,7 @@ from strativ.estimators.options import (
 )
 
 from .errors import SpecError
+from .spec_planning import PLANNING_KEYS, planning_options
 from .spec_reading import READING_KEYS, ReadOptions, read_options
 from .spec_sensitivity import (
     SENSITIVITY_KEYS,
@@ -63,6 +64,7 @@ _SECTIONS: dict[str, tuple[str, ...] | None] = {
     "engine": None,
     "sensitivity": SENSITIVITY_KEYS,
     "waves": WAVE_KEYS,
+    "planning": PLANNING_KEYS,
 }
 _REQUIRED_COLUMNS = ("outcome", "take_up", "offer", "stratum")
 _GLOB_CHARS = set("*?[")
@@ -186,6 +188,10 @@ class Spec:
     randomization: tuple[int, int, float] | None = None
     """(draws, seed, null effect) of randomization inference (`inference.randomization`), or
     None."""
+    power: float = 0.8
+    """Power of the minimum detectable effect reported after each run (`planning.power`)."""
+    target_effects: tuple[tuple[str, float], ...] = ()
+    """(outcome, effect to plan for) pairs (`planning.target_effect`)."""
     pool_waves: bool = False
     """Whether a stratum pools its rows across the input files (`waves.pool`); by default
     each file's part of a stratum is its own stratum (`waves.splits_strata`)."""
@@ -234,6 +240,8 @@ class Spec:
                             else list(self.direct_effect),
                             "defier_share": list(self.defier_shares)},
             "waves": {"pool": self.pool_waves},
+            "planning": {"power": self.power,
+                         "target_effect": dict(self.target_effects) or None},
         }
 
 
@@ -403,6 +411,7 @@ def load_spec(path: Path | str) -> Spec:
         raise check.error(("missing", "drop_incomplete_rows"),
                           f"'missing.drop_incomplete_rows' must be true or false, "
                           f"found {_kind(drop)}")
+    power, targets = planning_options(path, lines, top.get("planning"), columns.outcome)
     return Spec(
         path=path,
         title=title,
@@ -426,6 +435,8 @@ def load_spec(path: Path | str) -> Spec:
         defier_shares=defier_shares(path, lines, top.get("sensitivity")),
         randomization=randomization_options(path, lines, inference.get("randomization")),
         pool_waves=pool_option(path, lines, top.get("waves")),
+        power=power,
+        target_effects=targets,
         lines=dict(lines),
     )
 

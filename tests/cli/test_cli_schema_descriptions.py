@@ -209,7 +209,8 @@ def documents(tmp_path_factory: pytest.TempPathFactory) -> dict[str, dict[str, A
     # the demo with its rounds pooled into district strata, blinded: the offer-share test and
     # the blinding record are filled
     pooled = DEMO_SPEC.read_text(encoding="utf-8").replace(
-        "../demo_data/", f"{DEMO_SPEC.parent.parent / 'demo_data'}/") + "waves:\n  pool: true\n"
+        "../demo_data/", f"{DEMO_SPEC.parent.parent / 'demo_data'}/") + "waves:\n  pool: true\n" \
+        "planning:\n  target_effect: {gas_therms: -5}\n"
     (root / "pooled.yaml").write_text(pooled, encoding="utf-8")
     return {"demo": _run(DEMO_SPEC, root / "demo_out"),
             "rounds": _run(root / "rounds.yaml", root / "rounds_out"),
