@@ -278,7 +278,8 @@ def compare(
     Example:  strativ compare last/results.json results/results.json --fail-beyond 2
     """
     with _boundary():
-        from .compare import compare_files, render_comparison
+        from .compare import compare_files
+        from .compare_render import render_comparison
 
         report = compare_files(old, new)
         code = report.exit_code(fail_beyond=fail_beyond)

@@ -27,8 +27,8 @@ from strativ.cli.compare import (
     ResultsComparison,
     compare_files,
     load_results,
-    render_comparison,
 )
+from strativ.cli.compare_render import render_comparison
 from strativ.cli.errors import EXIT_USAGE, UsageError
 
 
