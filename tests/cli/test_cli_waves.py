@@ -168,3 +168,28 @@ def test_a_single_file_has_no_waves_and_pool_must_be_true_or_false(tmp_path) -> 
     bad = CliRunner().invoke(app, ["run", str(tmp_path / "spec.yaml")], env=ENV)
     assert bad.exit_code == 2
     assert "line 9" in bad.stderr and "'waves.pool' must be true or false" in bad.stderr
+
+
+def test_row_features_see_the_wave_strata(tmp_path) -> None:
+    """The robust sandwich with covariates and randomization inference read the rows again;
+    they must see the same (stratum x wave) strata as the moments."""
+    frames = _waves(29, n=800)
+    for frame in frames.values():
+        frame["x"] = np.round(frame["y"] * 0.3 + np.arange(len(frame)) % 7, 3)
+    text = SPEC.replace("  stratum: site\n", "  stratum: site\n  covariates: [x]\n") + \
+        "inference:\n  variance: robust\n  randomization: {draws: 199, seed: 5}\n"
+    spec = _study(tmp_path, frames, text)
+    _, doc = _run(spec, tmp_path / "out")
+    joined = pd.concat([f.assign(wave=name) for name, f in frames.items()])
+    one = tmp_path / "one"
+    one.mkdir()
+    joined.to_csv(one / "all.csv", index=False)
+    (one / "spec.yaml").write_text(spec.read_text().replace("[wave_a.csv, wave_b.csv]", "all.csv")
+                                   .replace("stratum: site", "stratum: [site, wave]"))
+    _, want = _run(one / "spec.yaml", one / "out")
+    # reference: the same rows in one file with the wave as a second stratum column
+    for got, ref in zip(doc["adjusted_estimates"], want["adjusted_estimates"], strict=True):
+        assert got["fit"]["std_error"] == pytest.approx(ref["fit"]["std_error"], rel=1e-10)
+    got_ri, want_ri = (d["comparisons"][0]["randomization"] for d in (doc, want))
+    assert got_ri["p_value"] == want_ri["p_value"]
+    assert got_ri["interval"] == pytest.approx(want_ri["interval"], rel=1e-9)
