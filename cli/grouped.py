@@ -25,21 +25,19 @@ from strativ.estimators import OUTCOME_LIMIT, CellTable, cells_from_moments, gro
 
 from .errors import DataError
 from .loading import (
-    STRATUM_JOIN,
     Dataset,
     InputFile,
-    _check_joined_labels,
     _distinct_digests,
     _incomplete_columns,
     _integer_labels,
-    _label_parts,
     file_fingerprint,
     load_data,
+    stratum_labels,
 )
 from .spec import Spec
 from .units_sql import UNITS_VIEW, Roles, UnreadableError, roles_of, units_view
 from .values import parse_label
-from .waves import centre_keys, splits_strata, wave_part
+from .waves import centre_keys
 
 __all__ = ["CENTRE_ROWS", "GroupedData", "group_data", "from_rows"]
 
@@ -285,16 +283,10 @@ def _finish(spec: Spec, roles: Roles, frame: pd.DataFrame,
             return None
     files = [file_fingerprint(path, int(n[frame["file"].to_numpy() == i].sum()),
                               sha256=digests[i]) for i, path in enumerate(spec.data)]
-    parts = [_labels(frame, kept, part) for part in roles.strata]
-    if splits_strata(spec):
-        parts.append(wave_part(spec, kept["file"].to_numpy()))
+    labels, stratum_parts = stratum_labels(
+        spec, [_labels(frame, kept, part) for part in roles.strata], kept["file"].to_numpy())
     groups = kept.drop(columns=list(roles.strata)).reset_index(drop=True)
-    texts = [np.asarray(p, dtype=object).astype(str) for p in parts]
-    labels = texts[0] if len(texts) == 1 else np.asarray(
-        [STRATUM_JOIN.join(p) for p in zip(*texts, strict=True)], dtype=object)
-    if len(texts) > 1:
-        _check_joined_labels(spec, texts, labels)
-    groups.insert(0, "stratum", _integer_labels(labels) if len(texts) == 1 else labels)
+    groups.insert(0, "stratum", labels)
     if cols.cluster:
         groups["cluster"] = _labels(frame, kept, "cluster")
     return GroupedData(
@@ -304,7 +296,7 @@ def _finish(spec: Spec, roles: Roles, frame: pd.DataFrame,
         n_dropped=int(n[incomplete].sum()),
         dropped_by_arm=tuple((name, *arms[name]) for name, c in dropped.items()
                              if c and name in arms),
-        stratum_parts={} if len(texts) == 1 else _label_parts(labels, texts),
+        stratum_parts=stratum_parts,
     )
 
 

@@ -35,7 +35,8 @@ from .values import (
 )
 from .waves import splits_strata, wave_part
 
-__all__ = ["InputFile", "Dataset", "load_data", "file_digest", "file_fingerprint"]
+__all__ = ["InputFile", "Dataset", "load_data", "file_digest", "file_fingerprint",
+           "stratum_labels"]
 
 STRATUM_JOIN = " / "
 """Separator between the parts of a stratum label built from several columns."""
@@ -383,15 +384,8 @@ def _assemble(spec: Spec, files: list[InputFile], pieces: list[dict[str, np.ndar
     if n_kept == 0:
         raise DataError(None, None, (), f"no rows left: all {n_read} rows miss an offer, "
                         "take-up or stratum value", "fill in the missing values")
-    parts = [stack(name).astype(str) for name in cols.stratum]
-    if splits_strata(spec):
-        parts.append(wave_part(spec, stack("__file")).astype(str))
-    labels = parts[0] if len(parts) == 1 else \
-        np.asarray([STRATUM_JOIN.join(p) for p in zip(*parts, strict=True)], dtype=object)
-    if len(parts) > 1:
-        _check_joined_labels(spec, parts, labels)
-    stratum = _integer_labels(labels) if len(parts) == 1 else labels
-    stratum_parts = {} if len(parts) == 1 else _label_parts(labels, parts)
+    stratum, stratum_parts = stratum_labels(spec, [stack(name) for name in cols.stratum],
+                                            stack("__file"))
     return Dataset(
         files=tuple(files),
         outcomes={name: stack(name) for name in cols.outcome},
@@ -410,6 +404,39 @@ def _assemble(spec: Spec, files: list[InputFile], pieces: list[dict[str, np.ndar
         n_dropped=n_dropped,
         stratum_parts=stratum_parts,
     )
+
+
+def stratum_labels(spec: Spec, values: list[np.ndarray], file_index: np.ndarray, *,
+                   check: bool = True) -> tuple[np.ndarray, dict[Any, tuple[Any, ...]]]:
+    """The stratum label of each row or group, the one rule every reader follows.
+
+    Parameters
+    ----------
+    spec : Spec
+        The validated spec.
+    values : list of ndarray
+        Per stratum column, the (parsed) value of each row or group.
+    file_index : ndarray
+        Input file of each row or group: its wave is the last part of the label when the
+        waves split the strata (`waves.splits_strata`).
+    check : bool, default=True
+        Refuse two different combinations that read as one label.
+
+    Returns
+    -------
+    tuple of (ndarray, dict)
+        Labels (int when one integer column makes them), and label -> each part's value
+        (empty for a label from one column).
+    """
+    parts = [np.asarray(v, dtype=object).astype(str) for v in values]
+    if splits_strata(spec):
+        parts.append(wave_part(spec, file_index).astype(str))
+    if len(parts) == 1:
+        return _integer_labels(parts[0]), {}
+    labels = np.asarray([STRATUM_JOIN.join(p) for p in zip(*parts, strict=True)], dtype=object)
+    if check:
+        _check_joined_labels(spec, parts, labels)
+    return labels, _label_parts(labels, parts)
 
 
 def _label_parts(labels: np.ndarray, parts: list[np.ndarray]) -> dict[Any, tuple[Any, ...]]:

@@ -15,9 +15,8 @@ import numpy as np
 
 from .errors import DataError
 from .grouped import GroupedData, _labels
-from .loading import STRATUM_JOIN, _integer_labels
+from .loading import stratum_labels
 from .units_sql import UNITS_VIEW, units_view
-from .waves import splits_strata, wave_part
 
 __all__ = ["OutcomeRows", "outcome_rows"]
 
@@ -88,12 +87,9 @@ def outcome_rows(data: GroupedData, name: str | list[str],
     finally:
         connection.close()
     combos = frame[["file", *parts]].drop_duplicates().reset_index(drop=True)
-    texts = [np.asarray(_labels(combos, combos, p), dtype=object).astype(str) for p in parts]
-    if splits_strata(spec):  # the wave is part of the stratum, as in `grouped`
-        texts.append(wave_part(spec, combos["file"].to_numpy()).astype(str))
-    labels = _integer_labels(texts[0]) if len(texts) == 1 else np.asarray(
-        [STRATUM_JOIN.join(t) for t in zip(*texts, strict=True)], dtype=object)
-    combos["stratum_label"] = labels
+    combos["stratum_label"], _ = stratum_labels(
+        spec, [_labels(combos, combos, p) for p in parts], combos["file"].to_numpy(),
+        check=False)
     frame = frame.merge(combos, on=["file", *parts], how="left")
     cluster = None
     if roles.cluster:

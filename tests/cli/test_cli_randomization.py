@@ -25,6 +25,13 @@ inference:
 """
 
 
+def _demo_rows() -> pd.DataFrame:
+    """The demo's rows with the run's strata: district x round (one file per round)."""
+    rows = pd.concat([pd.read_csv(p).assign(wave=p.stem)
+                      for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
+    return rows.assign(stratum=rows["district"] + " / " + rows["wave"])
+
+
 def test_the_run_gives_the_cores_test_on_the_rows(tmp_path) -> None:
     spec = tmp_path / "ri.yaml"
     spec.write_text(SPEC, encoding="utf-8")
@@ -32,10 +39,10 @@ def test_the_run_gives_the_cores_test_on_the_rows(tmp_path) -> None:
     assert done.exit_code == 0, done.stderr
     doc = json.loads((tmp_path / "out" / "results.json").read_text(encoding="utf-8"))
     got = doc["comparisons"][0]["randomization"]
-    rows = pd.concat([pd.read_csv(p) for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
+    rows = _demo_rows()
     want = randomization_test(randomization_draws(
         rows["gas_therms"], rows["retrofitted"], rows["won_lottery"],
-        rows["district"].to_numpy(object), draws=199, seed=11))
+        rows["stratum"].to_numpy(object), draws=199, seed=11))
     # reference: the core's test on the same rows, same draws and seed
     assert got["p_value"] == want.p_value
     assert got["interval"] == pytest.approx(list(want.interval), rel=1e-9)
@@ -79,10 +86,10 @@ def test_a_null_effect_other_than_zero_is_tested(tmp_path) -> None:
     assert done.exit_code == 0, done.stderr
     got = json.loads((tmp_path / "out" / "results.json").read_text(encoding="utf-8"))[
         "comparisons"][0]["randomization"]
-    rows = pd.concat([pd.read_csv(p) for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
+    rows = _demo_rows()
     want = randomization_test(randomization_draws(
         rows["gas_therms"], rows["retrofitted"], rows["won_lottery"],
-        rows["district"].to_numpy(object), draws=199, seed=11), null_effect=-150.0)
+        rows["stratum"].to_numpy(object), draws=199, seed=11), null_effect=-150.0)
     # reference: the core's test of the same sharp null on the same rows and draws
     assert (got["null_effect"], got["p_value"]) == (-150.0, want.p_value)
     # by construction: -150 lies inside the randomization interval, so it is not rejected
@@ -100,10 +107,10 @@ def test_several_outcomes_get_westfall_young_from_the_same_draws(tmp_path) -> No
     assert done.exit_code == 0, done.stderr
     got = json.loads((tmp_path / "out" / "results.json").read_text(encoding="utf-8"))[
         "randomization_outcomes"]
-    rows = pd.concat([pd.read_csv(p) for p in sorted((REPO / "demo_data").glob("round_*.csv"))])
+    rows = _demo_rows()
     family = randomization_family(rows[["gas_therms", "behind_on_bills"]].to_numpy(float),
                                   rows["retrofitted"], rows["won_lottery"],
-                                  rows["district"].to_numpy(object), draws=199, seed=11)
+                                  rows["stratum"].to_numpy(object), draws=199, seed=11)
     # reference: the core's family on the same rows and draws
     assert got["westfall_young"] == list(westfall_young(family))
     assert got["p_value"] == [randomization_test(f).p_value for f in family]
