@@ -1,9 +1,8 @@
-"""`strativ init`: inspect one data file and write a starter spec next to nothing existing.
+"""`strativ init`: inspect the data files and write a starter spec next to nothing existing.
 
-Roles are filled in only from unambiguous evidence: the stratum when exactly one column has
-few levels. Offer and take-up cannot be told apart from the data alone (both are binary), and
-an outcome cannot be told from a covariate, so those stay commented placeholders that list
-the candidate columns. The file is created only if it does not exist yet.
+Roles are filled in only from unambiguous evidence read from column names and values
+(`role_guess`); the others stay commented placeholders that list the candidate columns, and
+each filled role lists its alternatives. The file is created only if it does not exist yet.
 """
 
 from __future__ import annotations
@@ -25,6 +24,7 @@ from strativ.estimators.options import (
 
 from .errors import UsageError
 from .files import temporary_file
+from .role_guess import Guess, guess_roles
 from .tables import read_table
 from .values import parse_binary, parse_number
 
@@ -172,8 +172,8 @@ def starter_spec(files: list[Path] | Path, spec_path: Path) -> str:
 
     Parameters
     ----------
-    data : Path
-        The data file inspected.
+    files : list of Path, or Path
+        The data files (the first is profiled; several are the trial's waves).
     spec_path : Path
         Where the spec will live (the data path is written relative to it).
 
@@ -188,42 +188,52 @@ def starter_spec(files: list[Path] | Path, spec_path: Path) -> str:
     binary = [p for p in profiles if p.kind == "binary"]
     numeric = [p for p in profiles if p.kind == "numeric" and not p.few_levels]
     grouped = [p for p in profiles if p.few_levels]
-    rels = [os.path.relpath(f.resolve(), spec_path.resolve().parent) for f in files]
-    rel = rels[0] if len(rels) == 1 else "[" + ", ".join(_scalar(r) for r in rels) + "]"
     shown = {p.name: _scalar(p.name) for p in profiles}  # one line each, even with "\n"
     width = max(len(text) for text in shown.values()) if profiles else 0
+    guess = guess_roles(profiles)
+    source = data.name if len(files) == 1 else f"{data.name} (first of {len(files)} files)"
     out = [
-        f"# strativ spec: a starter written by `strativ init` from {data.name}",
+        f"# strativ spec: a starter written by `strativ init` from {source}",
         f"# ({profiles[0].rows if profiles else 0} rows, {len(profiles)} columns).",
-        "# Fill in the commented roles, then:  strativ check " + spec_path.name,
+        "# Roles are filled where the names and values make them clear; check each one, then:"
+        "  strativ check " + spec_path.name,
         "#",
         "# Columns found:",
         *[f"#   {shown[p.name].ljust(width)}  {p.describe()}" for p in profiles],
         "",
         f"title: {_scalar(data.stem)}",
-        f"data: {_scalar(rel) if len(rels) == 1 else rel}   # a file, a list of files, or a glob "
-        "such as \"round_*.csv\"",
-        "",
-        "columns:",
-        f"  # outcome: <column>    # or a list; numeric columns: {_names(numeric + binary)}",
-        f"  # take_up: <column>    # binary columns: {_names(binary)}",
-        f"  # offer: <column>      # the randomized offer; binary columns: {_names(binary)}",
+        f"data: {_data_entry(files, spec_path)}",
     ]
-    if len(grouped) == 1:
-        out.append(f"  stratum: {_scalar(grouped[0].name)}   # the only column with few levels "
-                   f"({grouped[0].levels})")
-    else:
-        out.append(f"  # stratum: <column>    # or a list, combined; columns with few levels: "
-                   f"{_names(grouped)}")
+    if len(files) > 1:
+        out.append("# each file is a wave, and each (stratum x wave) its own stratum; "
+                   "waves: {pool: true} pools them")
+    out += ["", "columns:"]
+    out += _role_lines("outcome", guess["outcome"], numeric + binary, many=True,
+                       why="numeric or 0/1 columns that are not baseline, identifier or "
+                       "design columns")
+    out += _role_lines("take_up", guess["take_up"], binary, why="0/1, named like take-up")
+    out += _role_lines("offer", guess["offer"], binary,
+                       why="the randomized offer: 0/1, named like an offer or lottery")
+    out += _role_lines("stratum", guess["stratum"], grouped,
+                       why="few levels, named like a randomization block; or a list, combined")
+    covariates = guess["covariates"].candidates
     out += [
         "  # cluster: <column>    # optional: the unit offered as a whole; every variance "
         "flavour then reads it",
-        "  # covariates: [<column>, ...]   # optional: baseline columns for adjustment and balance",
+        "  # covariates: [" + (", ".join(_scalar(p.name) for p in covariates) or "<column>, ...")
+        + "]   # optional: baseline columns for adjustment and balance"
+        + (" (these look like baseline)" if covariates else ""),
         "",
-        "# design:",
+        "design:",
         "#   offer_probability: estimated   # or a column name, or {stratum: probability, ...}",
-        *_option("assignment", ASSIGNMENTS, indent=2),
-        *_option("sampling", SAMPLINGS, indent=2),
+        "  # block: a lottery drew a fixed number of winners in each stratum (the usual case);",
+        "  # change to independent if each unit was offered by its own coin flip",
+        "  assignment: block",
+        "  # random: the units stand for a larger population of applicants (the cautious",
+        "  # choice); fixed when stratum sizes were set by the design and are the target",
+        "  sampling: random",
+        *_described("assignment", ASSIGNMENTS, indent=2),
+        *_described("sampling", SAMPLINGS, indent=2),
         f"# estimators: [{', '.join(DEFAULTS['estimators'])}]",
         *_described("estimators", ESTIMATORS),
         "# inference:",
@@ -237,6 +247,42 @@ def starter_spec(files: list[Path] | Path, spec_path: Path) -> str:
         "",
     ]
     return "\n".join(out)
+
+
+def _role_lines(role: str, guess: Guess, options: list[ColumnProfile], *, why: str,
+                many: bool = False) -> list[str]:
+    """The spec line of one role: filled when the guess is clear, else a commented
+    placeholder; the alternatives listed in a comment either way."""
+    chosen = guess.chosen
+    if many and chosen:
+        value = chosen[0].name if len(chosen) == 1 else None
+        text = _scalar(value) if value else "[" + ", ".join(_scalar(p.name) for p in chosen) + "]"
+        others = [p for p in options if p not in chosen]
+        return [f"  {role}: {text}   # {why}"
+                + (f"; others: {_names(others)}" if others else "")]
+    if not many and chosen is not None:
+        others = [p for p in guess.candidates if p is not chosen]
+        return [f"  {role}: {_scalar(chosen.name)}   # {why}"
+                + (f"; others: {_names(others)}" if others else "")]
+    listed = list(guess.candidates) or options
+    return [f"  # {role}: <column>    # {why}; candidates: {_names(listed)}"]
+
+
+def _data_entry(files: list[Path], spec_path: Path) -> str:
+    """One file, a glob when the files are one numbered family in one folder, else a list."""
+    base = spec_path.resolve().parent
+    rels = [os.path.relpath(f.resolve(), base) for f in files]
+    if len(files) == 1:
+        return _scalar(rels[0])
+    folder = {f.resolve().parent for f in files}
+    pattern = re.compile(r"^(.*?)\d+(\.[^/]+)$")
+    parts = {pattern.sub(r"\1*\2", f.name) for f in files}
+    if len(folder) == 1 and len(parts) == 1:
+        glob_name = parts.pop()
+        matched = sorted(p.resolve() for p in next(iter(folder)).glob(glob_name))
+        if matched == sorted(f.resolve() for f in files):
+            return _scalar(os.path.join(os.path.dirname(rels[0]), glob_name))
+    return "[" + ", ".join(_scalar(r) for r in rels) + "]"
 
 
 def write_new_file(path: Path, text: str) -> None:

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from cli_support import DEMO_SPEC, Study, assert_clean_failure, study_rows, write_csv
+from cli_support import DEMO_SPEC, REPO, Study, assert_clean_failure, study_rows, write_csv
 
 from strativ.cli import __version__
 from strativ.cli.spec import load_spec
@@ -59,21 +59,64 @@ def test_unknown_option_is_a_usage_error(study: Study, invoke) -> None:
 NO_AGE = ("unit", "site", "offer", "take_up", "y")
 
 
-def test_init_fills_only_the_unambiguous_stratum(study: Study, invoke) -> None:
+def test_init_fills_the_roles_names_and_values_make_clear(study: Study, invoke) -> None:
     write_csv(study.data, study_rows(), header=NO_AGE)
     target = study.root / "start.yaml"
     result = invoke("init", study.data, "--output", target)
     assert result.exit_code == 0, result.stderr
     text = target.read_text()
-    lines = text.splitlines()
-    # source: study_rows without age, 'site' is the only non-binary column with few levels
-    assert any(line.startswith("  stratum: site ") for line in lines)
-    assert "  # take_up: <column>    # binary columns: offer, take_up" in lines
-    assert any(line.startswith("  # offer: <column>") for line in lines)
-    assert any(line.startswith("  # outcome: <column>") for line in lines)
+    spec = load_spec(target)
+    # by construction: study_rows names its 0/1 columns offer and take_up, 'site' is the only
+    # column with few levels, 'unit' is an identifier and y the one numeric column left
+    assert (spec.columns.offer, spec.columns.take_up) == ("offer", "take_up")
+    assert (spec.columns.stratum, spec.columns.outcome) == (("site",), ("y",))
+    assert (spec.assignment, spec.sampling) == ("block", "random")
     assert "data: data.csv" in text
-    # an unfilled starter is not runnable yet, and says what is missing
-    assert_clean_failure(invoke("check", target), 2, "'columns' has no 'outcome'")
+    # the starter runs as written
+    assert invoke("check", target).exit_code == 0
+
+
+def test_init_leaves_offer_and_take_up_open_when_names_do_not_tell(study: Study,
+                                                                    invoke) -> None:
+    rows = [dict(r, a=r["offer"], b=r["take_up"]) for r in study_rows()]
+    write_csv(study.data, rows, header=("unit", "site", "a", "b", "y"))
+    target = study.root / "start.yaml"
+    assert invoke("init", study.data, "-o", target).exit_code == 0
+    lines = target.read_text().splitlines()
+    # by construction: two 0/1 columns named a and b say nothing about their roles
+    assert any(line.startswith("  # offer: <column>") and "candidates: a, b" in line
+               for line in lines)
+    assert any(line.startswith("  # take_up: <column>") and "candidates: a, b" in line
+               for line in lines)
+
+
+def test_init_ranks_design_blocks_above_demographic_columns(study: Study, invoke) -> None:
+    rows = [dict(r, sex=("f", "m")[i % 2], age_group=f"g{i % 6}")
+            for i, r in enumerate(study_rows())]
+    write_csv(study.data, rows, header=("unit", "sex", "age_group", "site", "offer", "take_up",
+                                        "y"))
+    target = study.root / "start.yaml"
+    assert invoke("init", study.data, "-o", target).exit_code == 0
+    line = next(x for x in target.read_text().splitlines() if x.startswith("  stratum:"))
+    # by construction: site (4 levels) is named like a block; sex and age_group are
+    # demographic columns with few levels, listed as the alternatives
+    assert line.startswith("  stratum: site ") and "others: age_group, sex" in line
+
+
+def test_init_on_the_demo_rounds_writes_a_spec_that_runs(tmp_path, invoke) -> None:
+    target = tmp_path / "trial.yaml"
+    done = invoke("init", str(REPO / "demo_data" / "round_*.csv"), "-o", target)
+    assert done.exit_code == 0, done.output
+    spec = load_spec(target)
+    # source: demo_data/README.md, the columns of the invented insulation lottery
+    assert (spec.columns.offer, spec.columns.take_up, spec.columns.stratum) == (
+        "won_lottery", "retrofitted", ("district",))
+    assert spec.columns.outcome == ("gas_therms", "behind_on_bills")
+    assert [p.name for p in spec.data] == ["round_1.csv", "round_2.csv", "round_3.csv"]
+    assert "round_*.csv" in target.read_text()
+    assert invoke("check", target, "-q").exit_code == 0
+    ran = invoke("run", target, "-q", "--out", tmp_path / "out")
+    assert ran.exit_code == 0, ran.output
 
 
 def test_init_spec_runs_once_the_placeholders_are_filled(study: Study, invoke) -> None:
@@ -100,11 +143,9 @@ def test_init_leaves_a_placeholder_when_the_stratum_is_ambiguous(study: Study, i
     target = study.root / "start.yaml"
     assert invoke("init", study.data, "-o", target).exit_code == 0
     lines = target.read_text().splitlines()
-    # source: study_rows, site (4 levels), wave (3) and age (9) all have few levels
-    assert (
-        "  # stratum: <column>    # or a list, combined; columns with few levels: site, "
-        "wave, age" in lines
-    )
+    # source: study_rows, site (4 levels) and wave (3) are both named like blocks, age (9)
+    assert any(line.startswith("  # stratum: <column>") and "candidates: site, wave, age"
+               in line for line in lines)
     assert not any(line.startswith("  stratum:") for line in lines)
 
 

@@ -261,7 +261,9 @@ def test_starter_spec_stays_valid_yaml_with_a_newline_in_a_column_name(tmp_path:
     assert invoke("init", data, "--output", target).exit_code == 0
     # source: the header above; every commented line of the starter stays a comment
     assert yaml.safe_load(target.read_text()) == {
-        "title": "d", "data": "d.csv", "columns": {"stratum": "site: x"}}
+        "title": "d", "data": "d.csv",
+        "columns": {"outcome": "y", "take_up": "take\nup", "stratum": "site: x"},
+        "design": {"assignment": "block", "sampling": "random"}}
     assert '#   "take\\nup"' in target.read_text()
 
 
