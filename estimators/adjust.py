@@ -183,9 +183,13 @@ def adjustment_slopes(estimator: str, m: AdjustmentMoments,
         return _iv_slopes(per.sum(axis=0), k, "fixed effects")
     if estimator != "interacted":
         raise InputError("estimator", f"unknown estimator {estimator!r}.")
+    # A stratum whose first stage is exactly zero identifies no effect of its own and, in the
+    # saturated regression, nothing about the common slopes: it is left out of the slopes
+    # (its units still enter the estimate on y - x'γ, as in the unadjusted fit).
+    per = per[per[:, 2, 1] != 0]
     zd = per[:, 2, 1]
-    if np.any(zd == 0):
-        raise InputError("take_up", "a stratum has no first stage, so its effect is undefined.")
+    if zd.size == 0:
+        raise InputError("take_up", "no stratum has a first stage, so no effect is defined.")
     a = (per[:, 3:, 3:] - per[:, 3:, 1, None] * per[:, 2, None, 3:] / zd[:, None, None]).sum(0)
     b = (per[:, 3:, 0] - per[:, 3:, 1] * (per[:, 2, 0] / zd)[:, None]).sum(0)
     return _solve(a, b, "interacted")

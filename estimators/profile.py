@@ -199,7 +199,8 @@ def covariate_profile(
     with np.errstate(invalid="ignore", divide="ignore"):
         cell_mean = np.where(counts > 0, sums / counts, np.nan) + centre[:, None, :]
     rows = []
-    kappa = 1 - take_up * (1 - offer) / (1 - p[codes]) - (1 - take_up) * offer / p[codes]
+    with np.errstate(invalid="ignore", divide="ignore"):  # one-arm strata: not used
+        kappa = 1 - take_up * (1 - offer) / (1 - p[codes]) - (1 - take_up) * offer / p[codes]
     kappa = np.where(use, kappa, 0.0)
     for j, name in enumerate(names):
         arm_n = counts[kept, :, j].sum(axis=0)

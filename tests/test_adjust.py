@@ -206,3 +206,18 @@ def test_cluster_robust_with_covariates_equals_linearmodels(rows) -> None:
     # reference: linearmodels IV2SLS clustered covariance, debiased=False (no scale)
     assert _robust(rows, "fixed_effects", cluster=cluster).std_error == pytest.approx(
         result.std_errors["d"], rel=SE_RTOL)
+
+
+def test_a_stratum_without_first_stage_leaves_the_interacted_slopes_alone(rows) -> None:
+    extra = rows[rows.s == rows.s.iloc[0]].head(40).copy()
+    extra["s"] = "no first stage"
+    extra["d"] = 0  # nobody takes up, offered or not: the first stage is exactly zero
+    both = pd.concat([rows, extra], ignore_index=True)
+    got = adjustment_slopes("interacted", moments_of(both, COVARIATES))
+    # reference: the slopes without that stratum (matched to linearmodels' saturated IV in
+    # test_interacted_with_covariates_equals_the_saturated_regression): a stratum
+    # with no first stage identifies nothing about the common slopes
+    want = adjustment_slopes("interacted", moments_of(rows, COVARIATES))
+    np.testing.assert_allclose(got, want, rtol=1e-9)
+    table = adjusted_moments(moments_of(both, COVARIATES), got)
+    assert np.isfinite(fit(cells_from_moments(table), estimator="interacted").estimate)
