@@ -1,16 +1,20 @@
 """`strativ init`: inspect the data files and write a starter spec next to nothing existing.
 
-Roles are filled in only from unambiguous evidence read from column names and values
-(`role_guess`); the others stay commented placeholders that list the candidate columns, and
-each filled role lists its alternatives. The file is created only if it does not exist yet.
+Every file is read and its columns profiled together (a column's kind and levels over all
+files). Roles are filled in only from unambiguous evidence read from column names and values
+(`role_guess`, `starter_roles`); the others stay commented placeholders that list the
+candidate columns, and each filled role lists its alternatives. Several files from one
+numbered family in one folder are written as a glob. The file is created only if it does not
+exist yet.
 """
 
 from __future__ import annotations
 
+import glob
 import json
 import os
 import re
-from dataclasses import dataclass
+import textwrap
 from pathlib import Path
 
 from strativ.estimators.options import (
@@ -24,89 +28,21 @@ from strativ.estimators.options import (
 
 from .errors import UsageError
 from .files import temporary_file
-from .role_guess import Guess, guess_roles
-from .tables import read_table
-from .values import parse_binary, parse_number
+from .starter_roles import (
+    ColumnProfile,
+    RoleChoice,
+    assignment_notes,
+    choose_roles,
+    offered_counts,
+    profile_columns,
+    profile_files,
+)
 
-__all__ = ["ColumnProfile", "data_files", "profile_columns", "starter_spec", "write_new_file"]
+__all__ = ["ColumnProfile", "data_files", "profile_columns", "profile_files", "starter_spec",
+           "write_new_file"]
 
-_MAX_LEVELS = 50
 _PLAIN = re.compile(r"[A-Za-z_][A-Za-z0-9_.\-]*")
 _YAML_WORDS = {"true", "false", "yes", "no", "on", "off", "null", "~"}
-
-
-@dataclass(frozen=True, slots=True)
-class ColumnProfile:
-    """What a column looks like: its kind and how many distinct values it has."""
-
-    name: str
-    """Column name."""
-    kind: str
-    """``"binary"``, ``"numeric"``, ``"text"`` or ``"empty"``."""
-    levels: int
-    """Distinct non-missing values."""
-    missing: int
-    """Missing cells."""
-    rows: int
-    """Rows in the file."""
-
-    @property
-    def few_levels(self) -> bool:
-        """True for a non-binary column with 2..50 levels, each seen twice on average."""
-        return self.kind in ("numeric", "text") and 2 <= self.levels <= _MAX_LEVELS \
-            and self.levels * 2 <= self.rows - self.missing
-
-    def describe(self) -> str:
-        """Return a short description for the spec's comment block."""
-        if self.kind == "binary":
-            text = "binary (0/1 or true/false)"
-        elif self.kind == "empty":
-            text = "empty"
-        elif self.few_levels:
-            text = f"{self.kind}, {self.levels} levels"
-        elif self.levels == self.rows - self.missing:
-            text = f"{self.kind}, every value distinct (an identifier?)"
-        else:
-            text = f"{self.kind}, {self.levels} distinct values"
-        return text + (f", {self.missing} missing" if self.missing else "")
-
-
-def profile_columns(path: Path) -> list[ColumnProfile]:
-    """Classify every column of a CSV or Parquet file.
-
-    Parameters
-    ----------
-    path : Path
-        The data file.
-
-    Returns
-    -------
-    list of ColumnProfile
-        One profile per column, in file order.
-
-    Raises
-    ------
-    DataError
-        When the file cannot be read (see `strativ.cli.tables.read_table`).
-    """
-    table = read_table(path)
-    out = []
-    for name in table.header:
-        cells = table.columns[name]
-        binary = parse_binary(cells)
-        n_missing = int(binary.missing.sum())
-        present = [c.strip() if isinstance(c, str) else c
-                   for c, m in zip(cells, binary.missing, strict=True) if not m]
-        if n_missing == len(cells):
-            kind = "empty"
-        elif binary.invalid.size == 0:
-            kind = "binary"
-        elif parse_number(cells).invalid.size == 0:
-            kind = "numeric"
-        else:
-            kind = "text"
-        out.append(ColumnProfile(name, kind, len(set(present)), n_missing, len(cells)))
-    return out
 
 
 def _scalar(text: str) -> str:
@@ -116,8 +52,11 @@ def _scalar(text: str) -> str:
     return json.dumps(text)
 
 
-def _names(profiles: list[ColumnProfile]) -> str:
-    return ", ".join(_scalar(p.name) for p in profiles) or "none found"
+def _comment(text: str, indent: int = 2) -> list[str]:
+    """`text` as comment lines of at most 92 characters, `indent` spaces before the "#"."""
+    pad = " " * indent + "# "
+    return textwrap.wrap(text, width=92, initial_indent=pad, subsequent_indent=pad,
+                         break_on_hyphens=False)
 
 
 def _described(option: str, values: tuple[str, ...], indent: int = 0) -> list[str]:
@@ -168,69 +107,76 @@ def data_files(entries: list[str]) -> list[Path]:
 
 
 def starter_spec(files: list[Path] | Path, spec_path: Path) -> str:
-    """Return the text of a starter spec for `data`, to be saved at `spec_path`.
+    """Return the text of a starter spec for the data `files`, to be saved at `spec_path`.
 
     Parameters
     ----------
     files : list of Path, or Path
-        The data files (the first is profiled; several are the trial's waves).
+        The data files (several are the trial's waves); all are profiled.
     spec_path : Path
-        Where the spec will live (the data path is written relative to it).
+        Where the spec will live (the data path is written relative to its folder).
 
     Returns
     -------
     str
-        YAML text with the found roles filled in and the others as commented placeholders.
+        YAML text with the clear roles filled in, the others as commented placeholders, the
+        alternatives of each in comments, and ``design.assignment`` and ``design.sampling``
+        written with the reasons for each.
+
+    Raises
+    ------
+    DataError
+        When a file cannot be read.
     """
     files = [files] if isinstance(files, Path) else list(files)
-    data = files[0]
-    profiles = [p for p in profile_columns(data) if p.name]
-    binary = [p for p in profiles if p.kind == "binary"]
-    numeric = [p for p in profiles if p.kind == "numeric" and not p.few_levels]
-    grouped = [p for p in profiles if p.few_levels]
+    profiles = [p for p in profile_files(files) if p.name]
     shown = {p.name: _scalar(p.name) for p in profiles}  # one line each, even with "\n"
     width = max(len(text) for text in shown.values()) if profiles else 0
-    guess = guess_roles(profiles)
-    source = data.name if len(files) == 1 else f"{data.name} (first of {len(files)} files)"
+    roles = choose_roles([p for p in profiles if not p.absent])
+    family = _family(files, spec_path)
+    several = len(files) > 1
+    source = files[0].name if not several else \
+        f"{len(files)} files ({files[0].name} to {files[-1].name})"
+    rows = max((p.rows for p in profiles if not p.absent), default=0)
+    title = f"{files[0].stem} to {files[-1].stem}" if several else files[0].stem
     out = [
-        f"# strativ spec: a starter written by `strativ init` from {source}",
-        f"# ({profiles[0].rows if profiles else 0} rows, {len(profiles)} columns).",
-        "# Roles are filled where the names and values make them clear; check each one, then:"
-        "  strativ check " + spec_path.name,
+        *_comment(f"strativ spec: a starter written by `strativ init` from {source} ({rows} "
+                  f"rows, {len(profiles)} columns). Each role is filled where the column names "
+                  "and values make it clear, with the other possible columns beside it; check "
+                  "each one, then run:", indent=0),
+        f"#   strativ check {_scalar(spec_path.name)}",
         "#",
-        "# Columns found:",
+        "# Columns found" + (" (over all files):" if several else ":"),
         *[f"#   {shown[p.name].ljust(width)}  {p.describe()}" for p in profiles],
         "",
-        f"title: {_scalar(data.stem)}",
-        f"data: {_data_entry(files, spec_path)}",
+        f"title: {_scalar(title)}",
+        f"data: {family or _data_list(files, spec_path)}",
     ]
-    if len(files) > 1:
-        out.append("# each file is a wave, and each (stratum x wave) its own stratum; "
-                   "waves: {pool: true} pools them")
+    if several:
+        out += ["# each file is a wave of the trial; by default each (stratum x wave) is its own",
+                "# stratum, as each wave drew its own lottery; waves: {pool: true} pools them"]
     out += ["", "columns:"]
-    out += _role_lines("outcome", guess["outcome"], numeric + binary, many=True,
-                       why="numeric or 0/1 columns that are not baseline, identifier or "
-                       "design columns")
-    out += _role_lines("take_up", guess["take_up"], binary, why="0/1, named like take-up")
-    out += _role_lines("offer", guess["offer"], binary,
-                       why="the randomized offer: 0/1, named like an offer or lottery")
-    out += _role_lines("stratum", guess["stratum"], grouped,
-                       why="few levels, named like a randomization block; or a list, combined")
-    covariates = guess["covariates"].candidates
+    for role in ("outcome", "take_up", "offer", "stratum"):
+        out += _role_lines(role, roles[role])
+    suggested = roles["covariates"].alternatives
     out += [
         "  # cluster: <column>    # optional: the unit offered as a whole; every variance "
         "flavour then reads it",
-        "  # covariates: [" + (", ".join(_scalar(p.name) for p in covariates) or "<column>, ...")
-        + "]   # optional: baseline columns for adjustment and balance"
-        + (" (these look like baseline)" if covariates else ""),
+        *_comment("optional: baseline columns for adjustment and balance; " + (
+            "these look like baseline or background measures by their names: uncomment once "
+            "each is known to be measured before the offer (never list one the offer could "
+            "move)" if suggested else "none looks like one by its name")),
+        "  # covariates: [" + (", ".join(_scalar(p.name) for p in suggested) or "<column>, ...")
+        + "]",
         "",
         "design:",
         "#   offer_probability: estimated   # or a column name, or {stratum: probability, ...}",
-        "  # block: a lottery drew a fixed number of winners in each stratum (the usual case);",
-        "  # change to independent if each unit was offered by its own coin flip",
+        *_comment(assignment_notes(_counts(files, roles), _strata_text(roles, several))),
         "  assignment: block",
-        "  # random: the units stand for a larger population of applicants (the cautious",
-        "  # choice); fixed when stratum sizes were set by the design and are the target",
+        *_comment("random: these units stand for a larger population of applicants, so "
+                  "stratum sizes are random (the cautious choice). Write fixed when the stratum "
+                  "sizes were set by the design and these units are the whole population of "
+                  "interest."),
         "  sampling: random",
         *_described("assignment", ASSIGNMENTS, indent=2),
         *_described("sampling", SAMPLINGS, indent=2),
@@ -249,40 +195,73 @@ def starter_spec(files: list[Path] | Path, spec_path: Path) -> str:
     return "\n".join(out)
 
 
-def _role_lines(role: str, guess: Guess, options: list[ColumnProfile], *, why: str,
-                many: bool = False) -> list[str]:
-    """The spec line of one role: filled when the guess is clear, else a commented
-    placeholder; the alternatives listed in a comment either way."""
-    chosen = guess.chosen
-    if many and chosen:
-        value = chosen[0].name if len(chosen) == 1 else None
-        text = _scalar(value) if value else "[" + ", ".join(_scalar(p.name) for p in chosen) + "]"
-        others = [p for p in options if p not in chosen]
-        return [f"  {role}: {text}   # {why}"
-                + (f"; others: {_names(others)}" if others else "")]
-    if not many and chosen is not None:
-        others = [p for p in guess.candidates if p is not chosen]
-        return [f"  {role}: {_scalar(chosen.name)}   # {why}"
-                + (f"; others: {_names(others)}" if others else "")]
-    listed = list(guess.candidates) or options
-    return [f"  # {role}: <column>    # {why}; candidates: {_names(listed)}"]
+def _counts(files: list[Path], roles: dict[str, RoleChoice]) -> list[tuple[int, int]] | None:
+    offer, stratum = roles["offer"].filled, roles["stratum"].filled
+    if not offer or not stratum:
+        return None
+    return offered_counts(files, offer[0].name, stratum[0].name)
 
 
-def _data_entry(files: list[Path], spec_path: Path) -> str:
-    """One file, a glob when the files are one numbered family in one folder, else a list."""
+def _strata_text(roles: dict[str, RoleChoice], several: bool) -> str:
+    stratum = roles["stratum"].filled
+    name = _scalar(stratum[0].name) if stratum else "stratum"
+    return f"{name} x file" if several else name
+
+
+def _role_lines(role: str, choice: RoleChoice) -> list[str]:
+    """One role: a comment with the reason, then the filled line with the alternatives beside
+    it, or a commented placeholder listing the candidates, most likely first."""
+    names = [_scalar(p.name) for p in choice.alternatives]
+    if not choice.filled:
+        listed = ", ".join(names) or "none found"
+        return [*_comment(choice.reason),
+                f"  # {role}: <column>   # candidates, most likely first: {listed}"]
+    chosen = [_scalar(p.name) for p in choice.filled]
+    value = chosen[0] if len(chosen) == 1 else "[" + ", ".join(chosen) + "]"
+    others = ("others: " + ", ".join(names)) if names else "no other candidate"
+    return [*_comment(choice.reason), f"  {role}: {value}   # {others}"]
+
+
+def _data_list(files: list[Path], spec_path: Path) -> str:
+    """One file, or a list of files, each relative to the spec's folder."""
+    rels = [_relative(f, spec_path) for f in files]
+    return _scalar(rels[0]) if len(rels) == 1 else "[" + ", ".join(map(_scalar, rels)) + "]"
+
+
+def _relative(path: Path, spec_path: Path) -> str:
+    """`path` relative to the spec's folder; absolute when they share only the root."""
+    base, target = spec_path.resolve().parent, path.resolve()
+    try:
+        common = os.path.commonpath([base, target])
+    except ValueError:  # another drive
+        return str(target)
+    return str(target) if common == os.path.dirname(common) else os.path.relpath(target, base)
+
+
+_NUMBERED = re.compile(r"^(.*?)(\d+)((?:\.[A-Za-z0-9]+)+)$")
+
+
+def _family(files: list[Path], spec_path: Path) -> str | None:
+    """The `data` glob when the files are one numbered family in one folder and
+    the glob matches exactly them (as the spec will read it), else None."""
+    from .spec import glob_pattern
+
+    if len(files) < 2 or len({f.resolve().parent for f in files}) != 1:
+        return None
+    parts = {(m.group(1), m.group(3)) if (m := _NUMBERED.match(f.name)) else None
+             for f in files}
+    if len(parts) != 1 or None in parts:
+        return None
+    stem, suffix = parts.pop()
+    folder = os.path.dirname(_relative(files[0], spec_path))
+    entry = os.path.join(glob.escape(folder), glob.escape(stem) + "*" + glob.escape(suffix)) \
+        if folder else glob.escape(stem) + "*" + glob.escape(suffix)
     base = spec_path.resolve().parent
-    rels = [os.path.relpath(f.resolve(), base) for f in files]
-    if len(files) == 1:
-        return _scalar(rels[0])
-    folder = {f.resolve().parent for f in files}
-    pattern = re.compile(r"^(.*?)\d+(\.[^/]+)$")
-    parts = {pattern.sub(r"\1*\2", f.name) for f in files}
-    if len(folder) == 1 and len(parts) == 1:
-        glob_name = parts.pop()
-        matched = sorted(p.resolve() for p in next(iter(folder)).glob(glob_name))
-        if matched == sorted(f.resolve() for f in files):
-            return _scalar(os.path.join(os.path.dirname(rels[0]), glob_name))
-    return "[" + ", ".join(_scalar(r) for r in rels) + "]"
+    matched = {Path(m).resolve() for m in glob.glob(glob_pattern(entry, base))
+               if Path(m).is_file()}
+    if matched != {f.resolve() for f in files}:
+        return None
+    return _scalar(entry)
 
 
 def write_new_file(path: Path, text: str) -> None:
