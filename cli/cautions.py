@@ -29,6 +29,25 @@ _LISTED = 5
 """Strata named in one warning before "and N more"."""
 
 
+
+def fit_spec(cells: Any, spec: Spec, probabilities: dict[Any, float] | None) -> Any:
+    """`fit_all` on `cells` with the spec's options, the design probabilities restricted to
+    the strata the cells hold; the one call every fit of a run makes.
+
+    Raises
+    ------
+    strativ.estimators.EstimatorError
+        As `fit_all`.
+    """
+    from strativ.estimators import fit_all
+
+    present = set(cells.labels)
+    mapping = None if probabilities is None else \
+        {k: v for k, v in probabilities.items() if k in present}
+    return fit_all(cells, estimators=spec.estimators, variance=variance_used(spec),
+                   assignment=spec.assignment, sampling=spec.sampling, level=spec.level,
+                   offer_probability=mapping)
+
 def variance_used(spec: Spec) -> str:
     """Return the variance flavour the core applies for `spec`: with a cluster column,
     ``stratified`` is the ``cluster`` form; every other flavour keeps its name."""

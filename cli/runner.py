@@ -21,7 +21,6 @@ from strativ.estimators import (
     EstimatorError,
     build_cells,
     excluded_strata,
-    fit_all,
 )
 from strativ.estimators.adjust import AdjustedEstimate
 from strativ.estimators.attrition import AttritionTest, attrition_test
@@ -38,9 +37,9 @@ from strativ.estimators.sensitivity import (
 from .cautions import (
     balance_warnings,
     data_warnings,
+    fit_spec,
     fit_warnings,
     offer_count_warnings,
-    variance_used,
 )
 from .core_errors import located_error
 from .covariate_data import run_profile
@@ -390,9 +389,7 @@ def _fit_outcome(spec: Spec, data: GroupedData, name: str,
         mapping = None if probabilities is None else \
             {k: v for k, v in probabilities.items() if k in present}
         try:
-            comparison = fit_all(cells, estimators=spec.estimators, variance=variance_used(spec),
-                                 assignment=spec.assignment, sampling=spec.sampling,
-                                 level=spec.level, offer_probability=mapping)
+            comparison = fit_spec(cells, spec, mapping)
         except EstimatorError as exc:
             raise _located(exc, spec, data, name, probabilities=mapping) from None
         adjusted = adjusted_fits(spec, data, name, comparison, mapping)

@@ -70,20 +70,15 @@ class WaveSummary:
 
 def _fit_wave(spec: Spec, data: GroupedData, index: int, outcome: str,
               probabilities: dict[Any, float] | None) -> WaveFit:
-    from strativ.estimators import EstimatorError, fit_all
+    from strativ.estimators import EstimatorError
 
-    from .cautions import variance_used
+    from .cautions import fit_spec
 
     wave, name = wave_names(spec)[index], spec.data[index].name
     part = replace(data, groups=data.groups[data.groups["file"] == index].reset_index(drop=True))
     try:
         cells = part.cells(outcome)
-        present = set(cells.labels)
-        mapping = None if probabilities is None else \
-            {k: v for k, v in probabilities.items() if k in present}
-        comparison = fit_all(cells, estimators=spec.estimators, variance=variance_used(spec),
-                             assignment=spec.assignment, sampling=spec.sampling,
-                             level=spec.level, offer_probability=mapping)
+        comparison = fit_spec(cells, spec, probabilities)
     except (EstimatorError, ValueError, ZeroDivisionError) as exc:
         return WaveFit(wave, name, outcome, part.n_rows - part.missing(outcome), (),
                        str(exc).splitlines()[0] if str(exc) else type(exc).__name__)

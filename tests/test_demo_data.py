@@ -2,27 +2,20 @@
 
 from __future__ import annotations
 
-import importlib.util
 import json
 import math
-import sys
 from pathlib import Path
 from types import ModuleType
 
 import pytest
+from demo_support import load_generator
 
 DEMO_DIR = Path(__file__).resolve().parents[1] / "demo_data"
 FILES = ("round_1.csv", "round_2.csv", "round_3.csv", "truth.json")
 
 
 def _load_generator() -> ModuleType:
-    """Import demo_data/generate.py by path (demo_data is not a package)."""
-    spec = importlib.util.spec_from_file_location("strativ_demo_generate", DEMO_DIR / "generate.py")
-    assert spec is not None and spec.loader is not None
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[spec.name] = module
-    spec.loader.exec_module(module)
-    return module
+    return load_generator()
 
 
 @pytest.fixture(scope="module")

@@ -9,15 +9,14 @@ values.
 from __future__ import annotations
 
 import copy
-import importlib.util
 import io
 import json
-import sys
 from pathlib import Path
 from typing import Any
 
 import pytest
 from cli_support import DEMO_SPEC, ENV, REPO
+from demo_support import load_generator
 from rich.console import Console
 from typer.testing import CliRunner
 
@@ -34,13 +33,7 @@ from strativ.cli.errors import EXIT_USAGE, UsageError
 
 def _generator():
     """demo_data/generate.py, imported by path (demo_data is not a package)."""
-    spec = importlib.util.spec_from_file_location("strativ_demo_generate_compare",
-                                                  REPO / "demo_data" / "generate.py")
-    assert spec is not None and spec.loader is not None
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[spec.name] = module
-    spec.loader.exec_module(module)
-    return module
+    return load_generator("strativ_demo_generate_compare")
 
 
 @pytest.fixture(scope="module")
