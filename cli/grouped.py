@@ -37,7 +37,7 @@ from .loading import (
 from .spec import Spec
 from .units_sql import UNITS_VIEW, Roles, UnreadableError, roles_of, units_view
 from .values import parse_label
-from .waves import centre_keys
+from .waves import centre_keys, group_waves
 
 __all__ = ["CENTRE_ROWS", "GroupedData", "group_data", "from_rows"]
 
@@ -283,10 +283,13 @@ def _finish(spec: Spec, roles: Roles, frame: pd.DataFrame,
             return None
     files = [file_fingerprint(path, int(n[frame["file"].to_numpy() == i].sum()),
                               sha256=digests[i]) for i, path in enumerate(spec.data)]
-    labels, stratum_parts = stratum_labels(
-        spec, [_labels(frame, kept, part) for part in roles.strata], kept["file"].to_numpy())
+    values = [_labels(frame, kept, part) for part in roles.strata]
+    labels, stratum_parts = stratum_labels(spec, values, kept["file"].to_numpy())
+    waves = group_waves(spec, kept["file"].to_numpy(), values[-1])
     groups = kept.drop(columns=list(roles.strata)).reset_index(drop=True)
     groups.insert(0, "stratum", labels)
+    if waves is not None:
+        groups["wave"] = waves
     if cols.cluster:
         groups["cluster"] = _labels(frame, kept, "cluster")
     return GroupedData(
@@ -334,7 +337,11 @@ def from_rows(spec: Spec, dataset: Dataset) -> GroupedData:
     roles = roles_of(spec)
     units = pd.DataFrame({"file": dataset.file_index, "s0": dataset.stratum,
                           "offer": dataset.offer, "take_up": dataset.take_up})
-    roles = Roles(strata=("s0",), outcomes=roles.outcomes, covariates=roles.covariates,
+    strata = ("s0",)
+    if spec.wave_column is not None:  # the wave as a second key (`centre_keys` knows it)
+        units["s1"] = dataset.wave
+        strata = ("s0", "s1")
+    roles = Roles(strata=strata, outcomes=roles.outcomes, covariates=roles.covariates,
                   cluster=roles.cluster, probability=roles.probability)
     if roles.cluster:
         units["cluster"] = dataset.cluster
@@ -355,7 +362,9 @@ def from_rows(spec: Spec, dataset: Dataset) -> GroupedData:
     finally:
         connection.close()
     groups = frame.sort_values(list(roles.keys), kind="stable").reset_index(drop=True)
-    groups = groups.rename(columns={"s0": "stratum"})
+    groups = groups.rename(columns={"s0": "stratum", "s1": "wave"})
+    if spec.wave_column is None and dataset.wave is not None:
+        groups["wave"] = group_waves(spec, groups["file"].to_numpy(), None)
     groups["stratum"] = _integer_labels(groups["stratum"].to_numpy(dtype=object).astype(str)) \
         if not dataset.stratum_parts else groups["stratum"].to_numpy(dtype=object)
     return GroupedData(spec=spec, files=dataset.files, groups=groups, roles=roles,

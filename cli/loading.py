@@ -33,7 +33,7 @@ from .values import (
     parse_number,
     recode,
 )
-from .waves import splits_strata, wave_part
+from .waves import group_waves, pools_column, splits_strata, wave_part
 
 __all__ = ["InputFile", "Dataset", "load_data", "file_digest", "file_fingerprint",
            "stratum_labels"]
@@ -102,6 +102,8 @@ class Dataset:
     """For a stratum built from several columns: label -> the value of each stratum column,
     in the spec's order (int when every value of that column is an integer, else str). Empty
     for a stratum from one column."""
+    wave: np.ndarray | None = None
+    """Wave of each row (`waves.group_waves`), or None without waves."""
 
     @property
     def n_rows(self) -> int:
@@ -208,6 +210,8 @@ def _spec_roles(spec: Spec) -> dict[str, tuple[str, int | None]]:
     if spec.offer_probability.column is not None:
         roles[spec.offer_probability.column] = (
             "design.offer_probability", spec.line_of("design", "offer_probability"))
+    if spec.wave_column is not None:
+        roles[spec.wave_column] = ("waves.column", spec.line_of("waves", "column"))
     return roles
 
 
@@ -384,9 +388,10 @@ def _assemble(spec: Spec, files: list[InputFile], pieces: list[dict[str, np.ndar
     if n_kept == 0:
         raise DataError(None, None, (), f"no rows left: all {n_read} rows miss an offer, "
                         "take-up or stratum value", "fill in the missing values")
-    stratum, stratum_parts = stratum_labels(spec, [stack(name) for name in cols.stratum],
-                                            stack("__file"))
+    values = [stack(name) for name in cols.stratum]
+    stratum, stratum_parts = stratum_labels(spec, values, stack("__file"))
     return Dataset(
+        wave=group_waves(spec, stack("__file"), values[-1]),
         files=tuple(files),
         outcomes={name: stack(name) for name in cols.outcome},
         take_up=stack(cols.take_up),
@@ -418,7 +423,9 @@ def stratum_labels(spec: Spec, values: list[np.ndarray], file_index: np.ndarray,
         Per stratum column, the (parsed) value of each row or group.
     file_index : ndarray
         Input file of each row or group: its wave is the last part of the label when the
-        waves split the strata (`waves.splits_strata`).
+        input files are waves that split the strata (`waves.splits_strata`). With
+        `waves.column` the wave is the last of `values` instead, left out of the label
+        when the waves are pooled (`waves.pools_column`).
     check : bool, default=True
         Refuse two different combinations that read as one label.
 
@@ -429,7 +436,9 @@ def stratum_labels(spec: Spec, values: list[np.ndarray], file_index: np.ndarray,
         (empty for a label from one column).
     """
     parts = [np.asarray(v, dtype=object).astype(str) for v in values]
-    if splits_strata(spec):
+    if pools_column(spec):  # the wave column is read like a stratum part, not labelled
+        parts = parts[:-1]
+    elif splits_strata(spec) and not spec.wave_column:
         parts.append(wave_part(spec, file_index).astype(str))
     if len(parts) == 1:
         return _integer_labels(parts[0]), {}

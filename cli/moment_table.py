@@ -44,7 +44,7 @@ from .loading import STRATUM_JOIN, _integer_labels, _label_parts, file_fingerpri
 from .spec import Spec
 from .units_sql import Roles, roles_of
 from .values import parse_binary, parse_label, parse_number
-from .waves import WAVE_PART, part_names, splits_strata
+from .waves import WAVE_PART, part_names, pools_column, splits_strata
 
 __all__ = ["MOMENT_FIELDS", "moment_sql", "read_moment_table", "write_moment_table"]
 
@@ -109,6 +109,8 @@ def moment_sql(spec: Spec, table: str = "units") -> str:
     if splits_strata(spec):  # each input file's wave is part of the stratum
         strata.append(WAVE_PART)
         keys.insert(len(spec.columns.stratum), WAVE_PART)
+    if pools_column(spec):  # the wave column is a key, but strata pool across its values
+        strata = strata[:-1]
     return group_query(table, keys=keys, centre_keys=strata,
                        outcomes=list(spec.columns.outcome),
                        covariates=list(spec.columns.covariates))
@@ -124,6 +126,8 @@ def _table(data: GroupedData) -> pd.DataFrame:
             out[name] = [p[i] for p in parts]
     else:
         out[cols.stratum[0]] = g["stratum"].to_numpy(dtype=object)
+    if pools_column(spec):
+        out[spec.wave_column] = g["wave"].to_numpy(dtype=object)
     out[cols.offer] = g["offer"].to_numpy(dtype=np.int64)
     out[cols.take_up] = g["take_up"].to_numpy(dtype=np.int64)
     if cols.cluster:
@@ -274,7 +278,7 @@ def read_moment_table(spec: Spec) -> GroupedData:
                   covariates=roles.covariates if carried and covariates else (),
                   cluster=roles.cluster, probability=None)
     table = pd.concat(pieces, ignore_index=True)
-    names = list(cols.stratum)
+    names = list(cols.stratum[:-1] if pools_column(spec) else cols.stratum)
     if WAVE_PART in table.columns and WAVE_PART not in {c for _, c in cols.roles()}:
         names.append(WAVE_PART)  # written from a run whose waves split the strata
     texts = [table[name].to_numpy(dtype=object).astype(str) for name in names]
@@ -298,4 +302,5 @@ def read_moment_table(spec: Spec) -> GroupedData:
                        n_read=int(groups["n"].sum()), dropped=(), n_dropped=0,
                        stratum_parts={} if len(texts) == 1 else _label_parts(labels, texts),
                        from_moments=True,
-                       part_names=tuple(names) if len(names) > len(cols.stratum) else ())
+                       part_names=tuple(names) if len(names) > len(cols.stratum)
+                       or pools_column(spec) else ())

@@ -37,7 +37,9 @@ def render_waves(console: Console, run: Run) -> None:
     console.rule(Text("waves", "bold"), align="left")
     rule = "each wave's part of a stratum is its own stratum" if waves.strata == "separate" \
         else "strata pool their rows across waves (waves.pool)"
-    console.print(f"{len(waves.names)} input files are {len(waves.names)} waves; {rule}. "
+    source = f"the {len(waves.names)} values of column {waves.column} are" if waves.column \
+        else f"{len(waves.names)} input files are"
+    console.print(f"{source} {len(waves.names)} waves; {rule}. "
                   "Each wave fitted alone, standard errors in brackets:")
     for outcome in run.spec.columns.outcome:
         fits = [f for f in waves.fits if f.outcome == outcome]

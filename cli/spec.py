@@ -10,7 +10,7 @@ from __future__ import annotations
 import difflib
 import glob
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -33,7 +33,7 @@ from .spec_sensitivity import (
     randomization_options,
 )
 from .tables import DATA_SUFFIXES, FORMATS_TEXT
-from .waves import WAVE_KEYS, pool_option
+from .waves import WAVE_KEYS, wave_options
 from .yamlmarks import KeyPath, compose_with_lines, dotted, line_of
 
 __all__ = [
@@ -193,8 +193,12 @@ class Spec:
     target_effects: tuple[tuple[str, float], ...] = ()
     """(outcome, effect to plan for) pairs (`planning.target_effect`)."""
     pool_waves: bool = False
-    """Whether a stratum pools its rows across the input files (`waves.pool`); by default
-    each file's part of a stratum is its own stratum (`waves.splits_strata`)."""
+    """Whether a stratum pools its rows across the waves (`waves.pool`); by default each
+    wave's part of a stratum is its own stratum (`waves.splits_strata`)."""
+    wave_column: str | None = None
+    """Column whose values are the waves (`waves.column`), or None: each input file is a
+    wave. When set it is also the last entry of ``columns.stratum`` (read and grouped like a
+    stratum column; `waves.pools_column` leaves it out of the label)."""
     lines: Mapping[KeyPath, int] = field(default_factory=dict, repr=False, compare=False)
     """Spec line of each key path, for messages raised after loading."""
 
@@ -219,7 +223,7 @@ class Spec:
                 "outcome": list(cols.outcome),
                 "take_up": cols.take_up,
                 "offer": cols.offer,
-                "stratum": list(cols.stratum),
+                "stratum": list(cols.stratum[:-1] if self.wave_column else cols.stratum),
                 "cluster": cols.cluster,
                 "covariates": list(cols.covariates),
             },
@@ -239,7 +243,7 @@ class Spec:
             "sensitivity": {"direct_effect": None if self.direct_effect is None
                             else list(self.direct_effect),
                             "defier_share": list(self.defier_shares)},
-            "waves": {"pool": self.pool_waves},
+            "waves": {"pool": self.pool_waves, "column": self.wave_column},
             "planning": {"power": self.power,
                          "target_effect": dict(self.target_effects) or None},
         }
@@ -412,6 +416,13 @@ def load_spec(path: Path | str) -> Spec:
                           f"'missing.drop_incomplete_rows' must be true or false, "
                           f"found {_kind(drop)}")
     power, targets = planning_options(path, lines, top.get("planning"), columns.outcome)
+    pool_waves, wave_column = wave_options(path, lines, top.get("waves"), columns)
+    if wave_column is not None:
+        if wave_column == offer_probability.column:
+            raise check.error(("waves", "column"), f"wave column '{wave_column}' is already "
+                              "the design.offer_probability column",
+                              "name the column that holds each row's wave")
+        columns = replace(columns, stratum=(*columns.stratum, wave_column))
     return Spec(
         path=path,
         title=title,
@@ -434,7 +445,8 @@ def load_spec(path: Path | str) -> Spec:
         direct_effect=direct_effect_range(path, lines, top.get("sensitivity")),
         defier_shares=defier_shares(path, lines, top.get("sensitivity")),
         randomization=randomization_options(path, lines, inference.get("randomization")),
-        pool_waves=pool_option(path, lines, top.get("waves")),
+        pool_waves=pool_waves,
+        wave_column=wave_column,
         power=power,
         target_effects=targets,
         lines=dict(lines),

@@ -1,9 +1,10 @@
-"""Each wave on its own: the spec's estimators fitted on one input file's groups at a time.
+"""Each wave on its own: the spec's estimators fitted on one wave's groups at a time.
 
-Next to the pooled fit over every wave, a run with several input files fits each wave's
-groups alone (unadjusted, same options), so a reader sees whether a new wave moves the
-estimate. A wave in which the estimators cannot fit (for example no stratum with both offer
-arms) is reported with the reason instead of stopping the run.
+Next to the pooled fit over every wave, a run with several input files (or a wave column,
+`waves.column`) fits each wave's groups alone (unadjusted, same options), so a reader sees
+whether a new wave moves the estimate. A wave in which the estimators cannot fit (for
+example no stratum with both offer arms) is reported with the reason instead of stopping the
+run.
 """
 
 from __future__ import annotations
@@ -11,7 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING, Any
 
-from .waves import pooled_share_test, splits_strata, wave_names
+from .waves import has_waves, pooled_share_test, splits_strata, wave_names
 
 if TYPE_CHECKING:
     from .grouped import GroupedData
@@ -25,9 +26,9 @@ class WaveFit:
     """One outcome's estimates on one wave's rows alone."""
 
     wave: str
-    """Wave name (the input file's name without suffixes)."""
+    """Wave name (the input file's name without suffixes, or the wave column's value)."""
     file: str
-    """Input file name."""
+    """Input file name (with a wave column: every input file, comma-separated)."""
     outcome: str
     """Outcome column."""
     rows: int
@@ -52,30 +53,32 @@ class WaveSummary:
     names: tuple[str, ...]
     """Wave names, in input order."""
     files: tuple[str, ...]
-    """Input file of each wave."""
+    """Input file of each wave (with a wave column: every input file, comma-separated)."""
     strata: str
     """``"separate"`` (a stratum is stratum × wave) or ``"pooled"``."""
     share_test: Any
     """`strativ.estimators.waves.WaveShareTest` of the pooled strata (None when separate)."""
     fits: tuple[WaveFit, ...]
     """Per wave and outcome, the estimators on that wave alone."""
+    column: str | None = None
+    """Column whose values are the waves (`waves.column`), or None: one wave per file."""
 
     def to_dict(self) -> dict[str, Any]:
         """Return the JSON form."""
-        return {"names": list(self.names), "files": list(self.files), "strata": self.strata,
+        return {"names": list(self.names), "files": list(self.files), "column": self.column,
+                "strata": self.strata,
                 "offer_share_test": None if self.share_test is None
                 else self.share_test.to_dict(),
                 "by_wave": [f.to_dict() for f in self.fits]}
 
 
-def _fit_wave(spec: Spec, data: GroupedData, index: int, outcome: str,
+def _fit_wave(spec: Spec, data: GroupedData, wave: str, name: str, outcome: str,
               probabilities: dict[Any, float] | None) -> WaveFit:
     from strativ.estimators import EstimatorError
 
     from .cautions import fit_spec
 
-    wave, name = wave_names(spec)[index], spec.data[index].name
-    part = replace(data, groups=data.groups[data.groups["file"] == index].reset_index(drop=True))
+    part = replace(data, groups=data.groups[data.groups["wave"] == wave].reset_index(drop=True))
     try:
         cells = part.cells(outcome)
         comparison = fit_spec(cells, spec, probabilities)
@@ -107,14 +110,21 @@ def wave_summary(spec: Spec, data: GroupedData,
     -------
     WaveSummary or None
     """
-    names = wave_names(spec)
-    if not names or data.from_moments:
+    if not has_waves(spec) or data.from_moments or "wave" not in data.groups:
         return None
     import numpy as np
 
+    names = wave_names(spec)
+    if names:
+        files = tuple(p.name for p in spec.data)
+    else:  # waves.column: its values, in label order (2 before 10), every file holds them
+        found = np.unique(data.groups["wave"].to_numpy(dtype=object).astype(str)).tolist()
+        names = tuple(sorted(found, key=lambda w: (0, int(w), w) if w.lstrip("-").isdigit()
+                             else (1, 0, w)))
+        files = tuple(", ".join(p.name for p in spec.data) for _ in names)
     with np.errstate(all="ignore"):
-        fits = tuple(_fit_wave(spec, data, i, outcome, probabilities)
-                     for i in range(len(names)) for outcome in data.outcomes)
-    return WaveSummary(names, tuple(p.name for p in spec.data),
-                       "separate" if splits_strata(spec) else "pooled",
-                       pooled_share_test(spec, data), fits)
+        fits = tuple(_fit_wave(spec, data, wave, file, outcome, probabilities)
+                     for wave, file in zip(names, files, strict=True)
+                     for outcome in data.outcomes)
+    return WaveSummary(names, files, "separate" if splits_strata(spec) else "pooled",
+                       pooled_share_test(spec, data), fits, spec.wave_column)
