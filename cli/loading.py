@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import hashlib
 import re
+from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -61,6 +62,12 @@ class InputFile:
         """Return the JSON form of the fingerprint."""
         return {"file": self.path.name, "path": str(self.path), "size_bytes": self.size,
                 "sha256": self.sha256, "rows": self.rows}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> InputFile:
+        """Rebuild the fingerprint from its JSON form (`to_dict`)."""
+        return cls(Path(data["path"]), int(data["size_bytes"]), str(data["sha256"]),
+                   int(data["rows"]))
 
 
 @dataclass(frozen=True, slots=True, eq=False)

@@ -4,7 +4,7 @@ covariates when fitted), the p-values of a zero effect on every outcome, adjuste
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
@@ -33,6 +33,12 @@ class OutcomeFamily:
         """Return the JSON form."""
         return {"estimator": self.estimator, "with_covariates": self.with_covariates,
                 "outcomes": list(self.outcomes), **self.p_values.to_dict()}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> OutcomeFamily:
+        """Rebuild the family from its JSON form (`to_dict`)."""
+        return cls(data["estimator"], bool(data["with_covariates"]), tuple(data["outcomes"]),
+                   AdjustedPValues.from_dict(data))
 
 
 def outcome_families(results: Sequence[OutcomeResult]) -> tuple[OutcomeFamily, ...]:

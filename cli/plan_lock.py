@@ -17,6 +17,8 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
+from strativ.estimators.rebuild import rebuildable
+
 from .errors import UsageError
 from .files import atomic_write_bytes
 
@@ -82,6 +84,7 @@ def write_lock(spec: Any, inputs: list[tuple[Path, int, str]], version: str) -> 
     return target
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class PlanCheck:
     """A run against its locked plan."""

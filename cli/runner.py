@@ -30,6 +30,7 @@ from strativ.estimators.randomization import (
     RandomizationFamily,
     RandomizationTest,
 )
+from strativ.estimators.rebuild import rebuildable
 from strativ.estimators.sensitivity import (
     DirectEffectSensitivity,
 )
@@ -71,6 +72,7 @@ __all__ = [
 ]
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class AttritionCell:
     """Rows of one (stratum, offer arm) whose outcome is missing."""

@@ -9,8 +9,11 @@ run.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING, Any
+
+from strativ.estimators.rebuild import rebuild
 
 from .waves import has_waves, pooled_share_test, splits_strata, wave_names
 
@@ -45,6 +48,11 @@ class WaveFit:
                 "rows": self.rows, "estimates": [dict(e) for e in self.estimates],
                 "reason": self.reason}
 
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> WaveFit:
+        """Rebuild the fit from its JSON form (`to_dict`)."""
+        return rebuild(cls, data, estimates=tuple(dict(e) for e in data["estimates"]))
+
 
 @dataclass(frozen=True, slots=True)
 class WaveSummary:
@@ -70,6 +78,16 @@ class WaveSummary:
                 "offer_share_test": None if self.share_test is None
                 else self.share_test.to_dict(),
                 "by_wave": [f.to_dict() for f in self.fits]}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> WaveSummary:
+        """Rebuild the summary from its JSON form (`to_dict`)."""
+        from strativ.estimators.waves import WaveShareTest
+
+        test = data["offer_share_test"]
+        return cls(tuple(data["names"]), tuple(data["files"]), data["strata"],
+                   None if test is None else WaveShareTest.from_dict(test),
+                   tuple(WaveFit.from_dict(f) for f in data["by_wave"]), data.get("column"))
 
 
 def _fit_wave(spec: Spec, data: GroupedData, wave: str, name: str, outcome: str,

@@ -36,6 +36,7 @@ from .adjust_robust import RobustFit
 from .errors import InputError
 from .intervals import critical_value, normal_interval
 from .moments import cells_from_moments
+from .rebuild import rebuild
 from .results import Estimate
 
 __all__ = ["AdjustedEstimate", "AdjustmentMoments", "adjusted_moments", "adjustment_slopes",
@@ -257,6 +258,13 @@ class AdjustedEstimate:
         return {"estimator": self.estimator, "covariates": list(self.covariates),
                 "slopes": dict(zip(self.covariates, self.slopes, strict=True)),
                 "std_error_ratio": self.std_error_ratio, "fit": self.fit.to_dict()}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> AdjustedEstimate:
+        """Rebuild the estimate from its JSON form (`to_dict`)."""
+        covariates = tuple(data["covariates"])
+        return rebuild(cls, data, covariates=covariates,
+                       slopes=tuple(float(data["slopes"][c]) for c in covariates))
 
 
 def fit_adjusted(

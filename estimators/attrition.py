@@ -21,9 +21,12 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .rebuild import rebuildable
+
 __all__ = ["AttritionTest", "attrition_test"]
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class AttritionTest:
     """Missing outcomes by offer arm, pooled over strata, with the Mantel–Haenszel test."""

@@ -16,9 +16,12 @@ from typing import Any
 
 import numpy as np
 
+from .rebuild import rebuildable
+
 __all__ = ["AdjustedPValues", "adjust_p_values"]
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class AdjustedPValues:
     """One family's p-values, as given and adjusted, in the order given."""

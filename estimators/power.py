@@ -22,6 +22,8 @@ from typing import Any
 
 from scipy import stats
 
+from .rebuild import rebuildable
+
 __all__ = ["Plan", "mde_from_itt", "multiplier", "plan"]
 
 
@@ -36,6 +38,7 @@ def multiplier(level: float, power: float, df: float | None = None) -> float:
     return float(dist.ppf(0.5 + level / 2) + dist.ppf(power))
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class Plan:
     """The minimum detectable effect of one estimate, and the rows a target effect needs."""

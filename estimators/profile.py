@@ -36,6 +36,7 @@ import pandas as pd
 from scipy import stats
 
 from .errors import InputError
+from .rebuild import rebuildable
 
 __all__ = ["SMD_FLAG", "BalanceTest", "CovariateRow", "CovariateProfile", "covariate_profile"]
 
@@ -43,6 +44,7 @@ SMD_FLAG = 0.1
 """|SMD| above which a covariate is flagged (Austin 2009)."""
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class CovariateRow:
     """Balance and complier mean of one covariate."""
@@ -73,6 +75,7 @@ class CovariateRow:
         return {name: getattr(self, name) for name in self.__slots__}
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class BalanceTest:
     """The joint test that every covariate's within-stratum difference is zero."""
@@ -109,6 +112,13 @@ class CovariateProfile:
         """Return the JSON form."""
         return {"covariates": [r.to_dict() for r in self.rows], "joint_test": self.joint.to_dict(),
                 "probabilities": self.probabilities, "smd_flag": self.flag}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> CovariateProfile:
+        """Rebuild the profile from its JSON form (`to_dict`)."""
+        return cls(tuple(CovariateRow.from_dict(r) for r in data["covariates"]),
+                   BalanceTest.from_dict(data["joint_test"]), data["probabilities"],
+                   float(data["smd_flag"]))
 
 
 def _ratio(top: float, bottom: float) -> float | None:

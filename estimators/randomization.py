@@ -27,6 +27,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import InputError
+from .rebuild import rebuildable
 
 __all__ = ["RandomizationDraws", "RandomizationFamily", "RandomizationTest", "randomization_draws",
            "randomization_family", "randomization_test", "westfall_young"]
@@ -49,6 +50,7 @@ class RandomizationDraws:
     """Seed of the random re-draws (None when enumerated)."""
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class RandomizationTest:
     """Randomization p-value of a sharp null and the interval by test inversion."""
@@ -78,6 +80,7 @@ class RandomizationTest:
         return out
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class RandomizationFamily:
     """Randomization p-values of several outcomes from the same re-draws, with the

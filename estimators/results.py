@@ -9,6 +9,8 @@ import math
 from dataclasses import dataclass, fields
 from typing import Any
 
+from .rebuild import rebuildable
+
 __all__ = [
     "ConfidenceSet",
     "Estimate",
@@ -45,6 +47,7 @@ def _as_dict(obj: Any) -> dict[str, Any]:
     return {f.name: clean(getattr(obj, f.name)) for f in fields(obj)}
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class ConfidenceSet:
     """A Fieller / Anderson-Rubin confidence set for the effect."""
@@ -74,6 +77,7 @@ class ConfidenceSet:
         return _as_dict(self)
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class Estimate:
     """One estimator's effect estimate with its inference."""
@@ -144,6 +148,7 @@ class Estimate:
         return _as_dict(self)
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class ExcludedStratum:
     """A stratum left out of every estimator."""
@@ -160,6 +165,7 @@ class ExcludedStratum:
         return _as_dict(self)
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class StratumRow:
     """One stratum of the analysis sample."""
@@ -210,6 +216,7 @@ class StratumRow:
         return _as_dict(self)
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class StratumTable:
     """Per-stratum table and the strata left out."""
@@ -226,6 +233,7 @@ class StratumTable:
         return _as_dict(self)
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class Gap:
     """Fixed-effects estimate minus the complier-weighted estimate that is reported."""
@@ -256,6 +264,7 @@ class Gap:
         return _as_dict(self)
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class SizeWeighted:
     """The stratum-size-weighted average of stratum effects ``sum_s q_s beta_s``."""
@@ -274,6 +283,7 @@ class SizeWeighted:
         return _as_dict(self)
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class ConstantEffectTest:
     """Over-identification test of one effect in every stratum (METHODS.md §5)."""
@@ -302,6 +312,7 @@ class ConstantEffectTest:
         return _as_dict(self)
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class OfferCountCheck:
     """Realized against design offer counts in one stratum."""
@@ -328,6 +339,7 @@ class OfferCountCheck:
         return _as_dict(self)
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class OfferCounts:
     """How the realized offer counts fit the declared design (design probabilities given)."""
@@ -352,6 +364,7 @@ class OfferCounts:
         return _as_dict(self)
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class NegativeFirstStage:
     """A stratum whose first stage is negative beyond noise: monotonicity is in question."""
@@ -368,6 +381,7 @@ class NegativeFirstStage:
         return _as_dict(self)
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class Comparison:
     """Several estimators fitted on one analysis sample, side by side."""

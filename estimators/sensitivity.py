@@ -18,6 +18,7 @@ from typing import Any
 
 import pandas as pd
 
+from .rebuild import rebuildable
 from .results import Estimate
 
 __all__ = ["DefierRow", "DirectEffectRow", "DirectEffectSensitivity", "defier_table",
@@ -27,6 +28,7 @@ _STEPS = 52
 """Bisection steps for the δ that brings the interval to zero (to the last bits of δ)."""
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class DirectEffectRow:
     """One estimator's estimate and interval under one assumed direct effect."""
@@ -44,6 +46,7 @@ class DirectEffectRow:
                 "interval": None if self.interval is None else list(self.interval)}
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class DirectEffectSensitivity:
     """How one estimator moves if the offer acted on the outcome directly."""
@@ -156,6 +159,7 @@ def direct_effect_sensitivity(
     return DirectEffectSensitivity(estimator, to_zero, tuple(rows), union)
 
 
+@rebuildable
 @dataclass(frozen=True, slots=True)
 class DefierRow:
     """What a given share of defiers would mean for a Wald-type estimate."""

@@ -13,11 +13,14 @@ which no one or everyone was offered, add nothing.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 from scipy import stats
+
+from .rebuild import rebuild
 
 __all__ = ["WaveShareTest", "wave_share_test"]
 
@@ -43,6 +46,14 @@ class WaveShareTest:
                             "waves": [{"wave": w, "offered": k, "units": n}
                                       for w, k, n in waves]}
                            for s, x, waves in self.strata]}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> WaveShareTest:
+        """Rebuild the test from its JSON form (`to_dict`)."""
+        strata = tuple((s["stratum"], float(s["statistic"]),
+                        tuple((w["wave"], int(w["offered"]), int(w["units"]))
+                              for w in s["waves"])) for s in data["strata"])
+        return rebuild(cls, data, strata=strata)
 
 
 def wave_share_test(stratum: np.ndarray, wave: np.ndarray, offer: np.ndarray,
