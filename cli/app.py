@@ -1,4 +1,4 @@
-"""The `strativ` command: run, check, cells, compare, lock, init, --version.
+"""The `strativ` command: run, check, cells, report, compare, lock, init, --version.
 
 Command functions are thin: they convert arguments, call the library, render and write. One
 boundary (`_boundary`) turns every error into a message on stderr and an exit code, so no
@@ -57,6 +57,9 @@ class OutputFormat(str, Enum):
 
     json = "json"
     csv = "csv"
+    html = "html"
+    md = "md"
+    tex = "tex"
 
 
 @contextmanager
@@ -145,8 +148,8 @@ def run(
         "write the result files.")] = False,
     formats: Annotated[list[OutputFormat] | None, typer.Option(
         "--format", "-f", show_default=False,
-        help="Result file to write: json (results.json) or csv (strata.csv); repeat for "
-        "both. Default: output.formats of the spec.")] = None,
+        help="Result file to write: json (results.json), csv (strata.csv), or a report: "
+        "html, md, tex (report.*); repeatable. Default: output.formats of the spec.")] = None,
     if_changed: Annotated[bool, typer.Option(
         "--if-changed", help="Do nothing (exit 0) when the inputs, the spec and the strativ "
         "version equal those of the last run recorded in the output folder.")] = False,
@@ -286,6 +289,50 @@ def compare(
         render_comparison(make_console(), report, fail_beyond=fail_beyond)
         if code:
             raise typer.Exit(code)
+
+
+class ReportFormat(str, Enum):
+    """A report to write."""
+
+    html = "html"
+    md = "md"
+    tex = "tex"
+
+
+class FigureFormat(str, Enum):
+    """An image format for separate figure files."""
+
+    svg = "svg"
+    png = "png"
+
+
+@app.command()
+def report(
+    results: Annotated[Path, typer.Argument(
+        show_default=False, metavar="RESULTS",
+        help="A results.json written by 'strativ run' (or its folder).")],
+    formats: Annotated[list[ReportFormat] | None, typer.Option(
+        "--format", "-f", show_default=False,
+        help="Report to write: html (report.html, self-contained), md (report.md) or tex "
+        "(report.tex, booktabs tables); repeatable. Default: html.")] = None,
+    out: Annotated[Path | None, typer.Option(
+        "--out", "-o", file_okay=False, show_default=False,
+        help="Folder for the reports (default: the folder of RESULTS).")] = None,
+    figures: Annotated[FigureFormat | None, typer.Option(
+        "--figures", show_default=False,
+        help="Also write each figure as a separate file: svg or png.")] = None,
+) -> None:
+    """Write reports from a results file alone (the data are not read).
+
+    Example:  strativ report strativ_out/results.json --format html --format tex
+    """
+    with _boundary() as err:
+        from .report_files import write_reports
+
+        chosen = tuple(dict.fromkeys(f.value for f in formats)) if formats else ("html",)
+        written = write_reports(results, chosen, out=out,
+                                figures=None if figures is None else figures.value)
+        err.print(Text.assemble("wrote ", Text(", ".join(str(p) for p in written))))
 
 
 @app.command()

@@ -40,7 +40,8 @@ __all__ = [
 
 SCHEMA_VERSION = "2.0"
 """Version of the results.json layout; bumped when a field changes meaning or is removed."""
-FILE_NAMES = {"json": "results.json", "csv": "strata.csv"}
+FILE_NAMES = {"json": "results.json", "csv": "strata.csv", "html": "report.html",
+              "md": "report.md", "tex": "report.tex"}
 """File written for each output format."""
 STRATA_COLUMNS = (
     "outcome", "stratum", "used", "exclusion_reason", "n", "n_offered", "n_not_offered",
@@ -352,7 +353,8 @@ def write_outputs(run: Run, out_dir: Path, formats: tuple[str, ...], *,
     out_dir : Path
         Output directory; created when missing.
     formats : tuple of str
-        ``"json"`` and/or ``"csv"``.
+        Any of ``"json"``, ``"csv"`` and the report formats ``"html"``, ``"md"``, ``"tex"``
+        (built from the results.json document, as `strativ report` builds them).
     created : str, optional
         Timestamp for results.json.
     document : dict, optional
@@ -371,13 +373,20 @@ def write_outputs(run: Run, out_dir: Path, formats: tuple[str, ...], *,
     """
     check_output_paths(run.spec, out_dir, formats)
     texts = {}
-    if "json" in formats:
+    reports = [f for f in formats if f not in ("json", "csv")]
+    if "json" in formats or reports:
         if document is None:
             document = results_document(run, created=created, out_dir=out_dir,
                                         formats=formats)
         texts["json"] = json.dumps(document, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
     if "csv" in formats:
         texts["csv"] = strata_table(run)
+    if reports:  # from the document, as `strativ report` reads it back from results.json
+        from .report import report_texts
+        from .results_read import results_from_document
+
+        texts.update(report_texts(results_from_document(json.loads(texts["json"])),
+                                  tuple(reports)))
     made_dir = not out_dir.exists()
     temps: list[tuple[Path, Path]] = []
     try:

@@ -37,6 +37,7 @@ from .waves import WAVE_KEYS, wave_options
 from .yamlmarks import KeyPath, compose_with_lines, dotted, line_of
 
 __all__ = [
+    "DEFAULT_FORMATS",
     "FORMATS",
     "DATA_SUFFIXES",
     "Columns",
@@ -47,7 +48,10 @@ __all__ = [
     "suggest",
 ]
 
-FORMATS = ("json", "csv")
+FORMATS = ("json", "csv", "html", "md", "tex")
+"""Result files a run can write: results.json, strata.csv and the reports."""
+DEFAULT_FORMATS = ("json", "csv")
+"""Result files written when the spec names none."""
 DEFAULT_OUTPUT_DIR = "strativ_out"
 
 _SECTIONS: dict[str, tuple[str, ...] | None] = {
@@ -438,7 +442,8 @@ def load_spec(path: Path | str) -> Spec:
         variance=variance,
         level=_level(check, inference.get("level")),
         output_dir=(path.parent / Path(out_dir).expanduser()).resolve(),
-        formats=check.choices(output.get("formats"), ("output", "formats"), FORMATS, FORMATS),
+        formats=check.choices(output.get("formats"), ("output", "formats"), FORMATS,
+                              DEFAULT_FORMATS),
         drop_incomplete_rows=drop,
         data_kind="moments" if kind == "moments" else "rows",
         reading=read_options(path, lines, top.get("reading"), top.get("engine")),

@@ -8,7 +8,7 @@ import pytest
 from cli_support import MINIMAL_SPEC, Study, assert_clean_failure
 
 from strativ.cli.errors import SpecError
-from strativ.cli.spec import FORMATS, load_spec
+from strativ.cli.spec import DEFAULT_FORMATS, load_spec
 from strativ.estimators.options import ESTIMATORS
 
 
@@ -24,7 +24,7 @@ def test_minimal_spec_gets_every_default(study: Study) -> None:
     assert spec.variance == "stratified" and spec.level == 0.95
     assert spec.assignment == "block" and spec.sampling == "random"
     assert spec.offer_probability.source == "estimated"
-    assert spec.formats == FORMATS and spec.drop_incomplete_rows is False
+    assert spec.formats == DEFAULT_FORMATS == ("json", "csv") and not spec.drop_incomplete_rows
     assert spec.output_dir == study.root.resolve() / "strativ_out"
     assert spec.data == (study.data.resolve(),)
     assert spec.title == "spec"

@@ -1,0 +1,189 @@
+"""The report's tables, built once from a results file and written as Markdown, LaTeX or HTML.
+
+A `ReportTable` holds the caption, column heads, rows of text and a note; `comparison_table`
+and `strata_table` fill it from one outcome's rebuilt results, and `to_markdown` / `to_latex`
+write it (the HTML template reads the same object). Numbers are written so that they parse
+when copied: an ASCII minus, no thousands separators, an exponent for very large or small
+values (LaTeX gets it as a power of ten in math mode).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+from typing import Any
+
+from .reading import ESTIMATOR_NAMES
+from .results_read import OutcomeReport, ResultsFile
+
+__all__ = ["ReportTable", "comparison_table", "plain_number", "strata_table", "tex_text",
+           "to_latex", "to_markdown"]
+
+MISSING = "\u2013"
+"""Shown for an undefined number."""
+
+
+def plain_number(value: float | None, *, digits: int = 4) -> str:
+    """`value` with about `digits` significant digits, ASCII minus, no grouping (`MISSING`
+    for None or a non-finite value)."""
+    if value is None or not math.isfinite(value):
+        return MISSING
+    if value == 0:
+        return "0"
+    size = abs(value)
+    if size >= 1e7 or size < 1e-4:
+        return f"{value:.{digits - 1}e}"
+    decimals = max(0, digits - 1 - math.floor(math.log10(size)))
+    text = f"{value:.{decimals}f}"
+    return "0" if float(text) == 0 else text
+
+
+def _share(value: float | None) -> str:
+    return MISSING if value is None or not math.isfinite(value) else f"{100 * value:.1f}%"
+
+
+def _count(value: int | None) -> str:
+    return MISSING if value is None else str(int(value))
+
+
+def _plural(n: int, one: str, many: str) -> str:
+    return f"{n} {one if n == 1 else many}"
+
+
+@dataclass(frozen=True, slots=True)
+class ReportTable:
+    """One table of the report, as text cells."""
+
+    key: str
+    """Short identifier (``comparison``, ``strata``), used in file and anchor names."""
+    caption: str
+    """What the table shows."""
+    columns: tuple[str, ...]
+    """Column heads."""
+    rows: tuple[tuple[str, ...], ...]
+    """Cells, row by row (the first column names the row)."""
+    note: str
+    """How the numbers were obtained, in one line."""
+
+
+def _interval(interval: Any) -> str:
+    if interval is None:
+        return MISSING
+    return f"[{plain_number(interval[0])}, {plain_number(interval[1])}]"
+
+
+def _note(results: ResultsFile, report: OutcomeReport) -> str:
+    comparison = report.comparison
+    first = comparison.estimates[0] if comparison.estimates else None
+    level = f"{first.level:.0%}" if first else ""
+    excluded = len(comparison.strata.excluded)
+    parts = [f"Variance: {first.variance}" if first else "",
+             f"{level} intervals" if first else "",
+             f"N = {report.rows_used} rows in "
+             f"{_plural(len(comparison.strata.rows), 'stratum', 'strata')}",
+             f"{_plural(excluded, 'stratum', 'strata')} excluded"]
+    if results.blinded is not None:
+        parts.append(f"BLINDED rehearsal (seed {results.blinded}): no estimate is a result")
+    parts.append("a LATE assumes the offer random within strata, affecting outcomes only "
+                 "through take-up, no defiers and no interference")
+    return "; ".join(p for p in parts if p) + "."
+
+
+def comparison_table(results: ResultsFile, report: OutcomeReport) -> ReportTable:
+    """The estimators side by side for one outcome (with covariate-adjusted rows, if any)."""
+    level = report.comparison.estimates[0].level if report.comparison.estimates else 0.95
+    rows = []
+    for e in report.comparison.estimates:
+        rows.append((ESTIMATOR_NAMES.get(e.estimator, e.estimator), plain_number(e.estimate),
+                     plain_number(e.std_error), _interval(e.interval),
+                     plain_number(e.first_stage_f, digits=3), _count(e.n_strata),
+                     _count(e.n_units)))
+    for a in report.adjusted:
+        e = a.fit
+        rows.append((f"{ESTIMATOR_NAMES.get(a.estimator, a.estimator)}, with covariates",
+                     plain_number(e.estimate), plain_number(e.std_error), _interval(e.interval),
+                     plain_number(e.first_stage_f, digits=3), _count(e.n_strata),
+                     _count(e.n_units)))
+    gap = report.comparison.gap
+    if gap is not None and gap.estimate is not None:
+        rows.append(("fixed effects minus complier-weighted", plain_number(gap.estimate),
+                     plain_number(gap.std_error), _interval(gap.interval), MISSING, MISSING,
+                     MISSING))
+    return ReportTable(
+        key="comparison",
+        caption=f"Effect of take-up on {report.outcome}: each estimator on the same sample",
+        columns=("estimator", "estimate", "std. error", f"{level:.0%} interval",
+                 "first-stage F", "strata", "rows"),
+        rows=tuple(rows), note=_note(results, report))
+
+
+def strata_table(results: ResultsFile, report: OutcomeReport) -> ReportTable:
+    """Per stratum: size, offer share, take-up, first stage, ITT, effect and both weights."""
+    rows = tuple(
+        (str(r.label), str(r.n), _share(r.offer_share), _share(r.take_up_offered),
+         _share(r.take_up_not_offered), plain_number(r.first_stage), plain_number(r.itt),
+         plain_number(r.effect), plain_number(r.effect_std_error),
+         plain_number(r.weight_fixed_effects, digits=3),
+         plain_number(r.weight_complier, digits=3))
+        for r in report.comparison.strata.rows)
+    return ReportTable(
+        key="strata",
+        caption=f"{report.outcome} by stratum: the weight each estimator gives every stratum",
+        columns=("stratum", "rows", "offer share", "take-up offered", "take-up not offered",
+                 "first stage", "ITT", "effect", "std. error", "fixed-effects weight",
+                 "complier weight"),
+        rows=rows, note=_note(results, report))
+
+
+def _md_cell(text: str) -> str:
+    return text.replace("|", "\\|").replace("\n", " ")
+
+
+def to_markdown(table: ReportTable) -> str:
+    """The table as a Markdown pipe table with its caption above and note below."""
+    head = "| " + " | ".join(map(_md_cell, table.columns)) + " |"
+    rule = "|" + "|".join(":---" if i == 0 else "---:" for i in range(len(table.columns))) + "|"
+    body = ["| " + " | ".join(map(_md_cell, row)) + " |" for row in table.rows]
+    return "\n".join([f"**{_md_cell(table.caption)}**", "", head, rule, *body, "",
+                      f"*{_md_cell(table.note)}*", ""])
+
+
+_TEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
+                "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
+                "^": r"\textasciicircum{}", "\u2013": "--"}
+_NUMBER = re.compile(r"^-?\d+(\.\d+)?(e[+-]\d+)?%?$")
+
+
+def tex_text(text: str) -> str:
+    return "".join(_TEX_SPECIAL.get(ch, ch) for ch in text)
+
+
+def _tex_number(text: str) -> str:
+    share = text.endswith("%")
+    core = text[:-1] if share else text
+    mantissa, _, exponent = core.partition("e")
+    out = mantissa if not exponent else f"{mantissa}\\times 10^{{{int(exponent)}}}"
+    return f"${out}$" + (r"\%" if share else "")
+
+
+def _tex_cell(text: str) -> str:
+    if _NUMBER.match(text):
+        return _tex_number(text)
+    if text.startswith("[") and text.endswith("]") and ", " in text:
+        low, high = text[1:-1].split(", ")
+        return f"[{_tex_cell(low)}, {_tex_cell(high)}]"
+    return tex_text(text)
+
+
+def to_latex(table: ReportTable) -> str:
+    """The table as a LaTeX ``table`` with booktabs rules, caption and note."""
+    spec = "l" + "r" * (len(table.columns) - 1)
+    lines = [r"\begin{table}[htbp]", r"\centering", r"\small",
+             rf"\caption{{{tex_text(table.caption)}}}",
+             rf"\label{{tab:{table.key}}}", rf"\begin{{tabular}}{{{spec}}}", r"\toprule",
+             " & ".join(tex_text(c) for c in table.columns) + r" \\", r"\midrule"]
+    lines += [" & ".join(_tex_cell(c) for c in row) + r" \\" for row in table.rows]
+    lines += [r"\bottomrule", r"\end{tabular}",
+              rf"\par\smallskip\footnotesize {tex_text(table.note)}", r"\end{table}", ""]
+    return "\n".join(lines)
