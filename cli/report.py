@@ -14,7 +14,17 @@ from dataclasses import dataclass
 from typing import Any
 
 from .reading import ASSUMPTIONS, REVIEW, reading
-from .report_tables import ReportTable, comparison_table, strata_table, to_latex, to_markdown
+from .report_tables import (
+    ReportTable,
+    balance_table,
+    comparison_table,
+    families_table,
+    offer_counts_table,
+    strata_table,
+    to_latex,
+    to_markdown,
+    waves_table,
+)
 from .report_words import diagnostic_sentences, weight_sentence
 from .results_read import OutcomeReport, ResultsFile
 
@@ -50,6 +60,8 @@ class OutcomeSection:
     excluded: tuple[str, ...]
     panels: tuple[Panel, ...]
     figures: dict[str, str]
+    figure_note: str
+    more: tuple[ReportTable, ...]
 
 
 def _excluded(report: OutcomeReport) -> tuple[str, ...]:
@@ -69,7 +81,16 @@ def _section(results: ResultsFile, report: OutcomeReport, figures: bool) -> Outc
 
         drawn = {"weights": str(weight_figure(report)),
                  "first_stage": str(first_stage_figure(report))}
+    from .report_figures import MAX_STRATA
+
+    total = len(report.comparison.strata.rows)
+    shown = (f"the {MAX_STRATA} of {total} strata with the largest weight under either "
+             "estimator" if total > MAX_STRATA else f"all {total} strata" if total != 1
+             else "the one stratum")
+    counts = offer_counts_table(report)
     return OutcomeSection(
+        figure_note=f"Drawn: {shown}, ordered by offer share.",
+        more=() if counts is None else (counts,),
         outcome=report.outcome, reading=tuple(reading(report.comparison)),
         weights=weight_sentence(report), comparison=comparison_table(results, report),
         strata=strata_table(results, report), excluded=_excluded(report),
@@ -96,6 +117,8 @@ def _context(results: ResultsFile, figures: bool) -> dict[str, Any]:
                      f"{rows['dropped_incomplete']:,} dropped as incomplete",
         "sections": [_section(results, r, figures) for r in results.outcomes],
         "run_panels": run_panels, "warnings": list(results.warnings),
+        "run_tables": [t for t in (balance_table(results), families_table(results),
+                                   waves_table(results)) if t is not None],
         "assumptions": ASSUMPTIONS, "review": REVIEW,
         "inputs": [(f.path.name, f"{f.rows:,}", f.sha256) for f in results.inputs],
     }
@@ -130,10 +153,12 @@ def _markdown(results: ResultsFile) -> str:
                 f"- {section.weights}", "", to_markdown(section.comparison),
                 to_markdown(section.strata)]
         out += [f"- excluded: {e}" for e in section.excluded]
+        out += [to_markdown(t) for t in section.more]
         for panel in section.panels:
             out += [f"### {panel.title}", "", *panel.sentences, ""]
     for panel in context["run_panels"]:
         out += [f"## {panel.title}", "", *panel.sentences, ""]
+    out += [to_markdown(t) for t in context["run_tables"]]
     out += ["## Assumptions", "", ASSUMPTIONS, "", REVIEW, ""]
     return "\n".join(line.rstrip() for line in "\n".join(out).splitlines()).rstrip() + "\n"
 
@@ -150,7 +175,9 @@ def _latex(results: ResultsFile) -> str:
     for section in context["sections"]:
         out += [rf"\subsection*{{{tex_text(section.outcome)}}}"]
         out += [tex_text(s) + r"\par" for s in [*section.reading, section.weights]]
-        out += [to_latex(section.comparison), to_latex(section.strata)]
+        out += [to_latex(section.comparison), to_latex(section.strata),
+                *(to_latex(t) for t in section.more)]
+    out += [to_latex(t) for t in context["run_tables"]]
     out += [r"\paragraph{Assumptions}" + " " + tex_text(ASSUMPTIONS) + " "
             + tex_text(REVIEW), r"\end{document}", ""]
     text = "\n".join(out)

@@ -17,8 +17,9 @@ from typing import Any
 from .reading import ESTIMATOR_NAMES
 from .results_read import OutcomeReport, ResultsFile
 
-__all__ = ["ReportTable", "comparison_table", "plain_number", "strata_table", "tex_text",
-           "to_latex", "to_markdown"]
+__all__ = ["ReportTable", "balance_table", "comparison_table", "families_table",
+           "offer_counts_table", "plain_number", "strata_table", "tex_text", "to_latex",
+           "to_markdown", "waves_table"]
 
 MISSING = "\u2013"
 """Shown for an undefined number."""
@@ -187,3 +188,90 @@ def to_latex(table: ReportTable) -> str:
     lines += [r"\bottomrule", r"\end{tabular}",
               rf"\par\smallskip\footnotesize {tex_text(table.note)}", r"\end{table}", ""]
     return "\n".join(lines)
+
+
+def _p_cell(p: float | None) -> str:
+    return MISSING if p is None else ("<0.001" if p < 0.001 else f"{p:.3f}")
+
+
+def balance_table(results: ResultsFile) -> ReportTable | None:
+    """Covariate means by arm, standardized differences and the compliers' means."""
+    profile = results.covariates
+    if profile is None:
+        return None
+    rows = tuple(
+        (r.covariate, plain_number(r.mean_offered), plain_number(r.mean_not_offered),
+         plain_number(r.smd_raw, digits=2), plain_number(r.smd_within, digits=2),
+         plain_number(r.smd_weighted, digits=2), "yes" if r.flagged else "no",
+         plain_number(r.mean_all), plain_number(r.mean_compliers))
+        for r in profile.rows)
+    joint = profile.joint
+    return ReportTable(
+        key="balance", caption="Baseline covariates: balance between offer arms and the "
+        "compliers' profile",
+        columns=("covariate", "mean offered", "mean not offered", "SMD raw", "SMD within strata",
+                 "SMD weighted", f"|SMD| > {profile.flag:g}", "mean, all", "mean, compliers"),
+        rows=rows,
+        note=f"Joint test of balance: statistic {plain_number(joint.statistic)} on {joint.df} "
+             f"df, p {_p_cell(joint.p_value)}; offer probabilities {profile.probabilities}.")
+
+
+def waves_table(results: ResultsFile) -> ReportTable | None:
+    """Each wave fitted alone: rows and each estimator's estimate and standard error."""
+    waves = results.waves
+    if waves is None or not waves.fits:
+        return None
+    names = list(dict.fromkeys(e["estimator"] for f in waves.fits for e in f.estimates))
+    rows = []
+    for fit in waves.fits:
+        by = {e["estimator"]: e for e in fit.estimates}
+        cells = []
+        for name in names:
+            e = by.get(name)
+            cells.append(MISSING if e is None or e["estimate"] is None else
+                         f"{plain_number(e['estimate'])} ({plain_number(e['std_error'])})")
+        rows.append((fit.wave, fit.outcome, str(fit.rows), *cells))
+    return ReportTable(
+        key="waves", caption="Each wave fitted alone (standard errors in brackets)",
+        columns=("wave", "outcome", "rows", *(ESTIMATOR_NAMES.get(n, n) for n in names)),
+        rows=tuple(rows),
+        note="Each (stratum x wave) is its own stratum." if waves.strata == "separate"
+        else "Strata pool their rows across waves.")
+
+
+def families_table(results: ResultsFile) -> ReportTable | None:
+    """p-values of a zero effect across outcomes, unadjusted, Holm and Benjamini-Hochberg."""
+    if not results.families:
+        return None
+    rows = []
+    for family in results.families:
+        label = ESTIMATOR_NAMES.get(family.estimator, family.estimator) + (
+            ", with covariates" if family.with_covariates else "")
+        p = family.p_values
+        for i, outcome in enumerate(family.outcomes):
+            rows.append((label, outcome, _p_cell(p.p_value[i]), _p_cell(p.holm[i]),
+                         _p_cell(p.benjamini_hochberg[i])))
+    return ReportTable(
+        key="outcomes", caption="Several outcomes: p-values adjusted for multiplicity",
+        columns=("estimator", "outcome", "p", "Holm", "Benjamini-Hochberg"), rows=tuple(rows),
+        note=f"{_plural(len(results.families[0].outcomes), 'outcome', 'outcomes')} per "
+             "family; Holm controls the family-wise error, Benjamini-Hochberg the false "
+             "discovery rate.")
+
+
+def offer_counts_table(report: OutcomeReport) -> ReportTable | None:
+    """Realized against design offer counts per stratum (design probabilities given)."""
+    counts = report.comparison.offer_counts
+    if counts is None:
+        return None
+    rows = tuple((str(r.label), str(r.n), str(r.n_offered), plain_number(r.design_probability),
+                  plain_number(r.expected_offered), "yes" if r.within_rounding else "no",
+                  _p_cell(r.p_value)) for r in counts.rows)
+    used = counts.assignment_used
+    return ReportTable(
+        key="offer-counts", caption=f"{report.outcome}: offered counts against the design",
+        columns=("stratum", "rows", "offered", "design probability", "expected offered",
+                 "within rounding", "binomial p"), rows=rows,
+        note=f"Assignment declared {counts.assignment_declared}, used {used}"
+             + ("; switched because some counts are off the design." if counts.switched
+                else "."))
