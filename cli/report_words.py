@@ -64,15 +64,21 @@ def _attrition(report: OutcomeReport) -> list[str]:
     test = report.attrition_test
     if test is None:
         return []
+    counts = (f"{test.missing_offered:,} of {test.offered:,} offered and "
+              f"{test.missing_not_offered:,} of {test.not_offered:,} not offered lack it")
+    if test.missing_offered + test.missing_not_offered == 0:
+        return [f"No row lacks the outcome {report.outcome} in either arm."]
     if test.difference is None:
-        return ["Missing outcomes by arm: no comparison is possible here."]
-    more = "offered" if test.difference > 0 else "not offered"
-    size = abs(test.difference)
-    p = getattr(test, "p_value", None)
+        return [f"Missing {report.outcome} by arm: {counts}; no stratum has both arms to "
+                "compare them within."]
+    p = test.p_value
     verdict = "" if p is None else (" beyond noise" if p < 0.05 else ", within noise")
-    return [f"{size:.1%} more of the {more} lack the outcome {report.outcome}{verdict} "
-            f"({_p(p)}); {test.missing_offered:,} of {test.offered:,} offered and "
-            f"{test.missing_not_offered:,} of {test.not_offered:,} not offered are missing."]
+    if round(abs(test.difference), 3) == 0:
+        return [f"Within strata, the offered and the not offered lack {report.outcome} "
+                f"equally often ({_p(p)}); {counts}."]
+    more = "offered" if test.difference > 0 else "not offered"
+    return [f"Within strata, {abs(test.difference):.1%} more of the {more} lack the outcome "
+            f"{report.outcome}{verdict} ({_p(p)}); {counts}."]
 
 
 def _randomization(report: OutcomeReport) -> list[str]:
@@ -126,13 +132,19 @@ def _balance(results: ResultsFile) -> list[str]:
     if profile is None:
         return []
     flagged = [r.covariate for r in profile.rows if r.flagged]
-    joint = profile.joint
-    p = getattr(joint, "p_value", None)
-    verdict = "rejects" if p is not None and p < 0.05 else "does not reject"
-    first = (f"{_count(len(flagged), 'covariate', 'covariates')} of {len(profile.rows)} "
-             f"{'exceeds' if len(flagged) == 1 else 'exceed'} |SMD| {profile.flag:g}"
-             + (f" ({', '.join(flagged)})" if flagged else "") + ".")
-    return [first, f"The joint test of balance {verdict} balance ({_p(p)})."]
+    p = profile.joint.p_value
+    if p is None:
+        joint = f"The joint test of balance is undefined ({profile.joint.reason or 'no test'})."
+    else:
+        verdict = "rejects" if p < 0.05 else "does not reject"
+        joint = f"The joint test of balance {verdict} balance ({_p(p)})."
+    total = _count(len(profile.rows), "covariate", "covariates")
+    if not flagged:
+        return [f"No standardized mean difference exceeds {profile.flag:g} in absolute value "
+                f"({total}).", joint]
+    verb = "exceeds" if len(flagged) == 1 else "exceed"
+    return [f"{len(flagged)} of {total} {verb} |SMD| {profile.flag:g}: {', '.join(flagged)}.",
+            joint]
 
 
 def _waves(results: ResultsFile) -> list[str]:
