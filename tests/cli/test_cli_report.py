@@ -267,3 +267,16 @@ def test_reading_flags_a_weak_first_stage_and_not_a_strong_one(tmp_path) -> None
     assert complier["weak_first_stage"]
     md = " ".join((tmp_path / "out" / "report.md").read_text(encoding="utf-8").split())
     assert "first stage is weak" in md and "weak-IV robust set" in md
+
+
+def test_a_blinded_run_says_so_in_every_report(tmp_path) -> None:
+    spec = tmp_path / "spec.yaml"
+    spec.write_text(DEMO_SPEC.read_text(encoding="utf-8").replace(
+        "../demo_data/", str(REPO / "demo_data") + "/"), encoding="utf-8")
+    _invoke("run", str(spec), "--out", str(tmp_path / "out"), "-q", "--blind",
+            "-f", "json", "-f", "html", "-f", "md", "-f", "tex")
+    for name in ("report.html", "report.md", "report.tex"):
+        text = (tmp_path / "out" / name).read_text(encoding="utf-8")
+        # by construction: a blinded run's every output is labelled
+        assert "BLINDED rehearsal (seed 1)" in text, name
+        assert text.count("BLINDED") >= 3, name  # the banner and each table note
