@@ -382,9 +382,15 @@ def init(
 
         files = data_files(data)
         target = output.expanduser()
-        write_new_file(target, starter_spec(files, target))
-        err.print(Text.assemble("wrote ", Text(str(target)), "; fill in the commented roles, "
-                                "then run: strativ check ", Text(str(target))))
+        text = starter_spec(files, target)
+        write_new_file(target, text)
+        missing = [line.split(":")[0].strip(" #") for line in text.splitlines()
+                   if line.startswith("  # ") and ": <column>   # candidates" in line]
+        todo = ("; every required role is filled: read the comments, then run: strativ "
+                "check " if not missing else
+                f"; fill in the commented {'role' if len(missing) == 1 else 'roles'} "
+                f"({', '.join(missing)}), then run: strativ check ")
+        err.print(Text.assemble("wrote ", Text(str(target)), todo, Text(str(target))))
 
 
 def main() -> None:

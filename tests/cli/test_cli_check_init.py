@@ -110,7 +110,11 @@ def test_init_leaves_offer_and_take_up_open_when_names_do_not_tell(study: Study,
     rows = [dict(r, a=r["offer"], b=r["take_up"]) for r in study_rows()]
     write_csv(study.data, rows, header=("unit", "site", "a", "b", "y"))
     target = study.root / "start.yaml"
-    assert invoke("init", study.data, "-o", target).exit_code == 0
+    done = invoke("init", study.data, "-o", target)
+    assert done.exit_code == 0
+    # by construction: the message names the roles left to fill (it used to say "fill in
+    # the commented roles" whether or not any was left)
+    assert "fill in the commented roles (take_up, offer)" in " ".join(done.stderr.split())
     text = target.read_text()
     # by construction: two 0/1 columns named a and b say nothing about their roles, so both
     # stay placeholders listing both (the line format replaced "candidates: a, b" when the
@@ -147,6 +151,7 @@ def test_init_on_the_demo_rounds_writes_a_spec_that_runs(tmp_path: Path, invoke)
     target = tmp_path / "specs" / "trial.yaml"
     done = invoke("init", str(tmp_path / "demo_data" / "round_*.csv"), "-o", target)
     assert done.exit_code == 0, done.output
+    assert "every required role is filled" in " ".join(done.stderr.split())
     text = target.read_text()
     spec = load_spec(target)
     # source: demo_data/README.md, the columns of the invented insulation lottery
