@@ -50,14 +50,18 @@ def weight_sentence(report: OutcomeReport) -> str:
                 f"between {NEAR_HALF[0]:.0%} and {NEAR_HALF[1]:.0%}, so offer shares do not "
                 "separate the two weightings here; the figure shows each stratum's weights.")
     if abs(fe - cw) < 0.02:
-        relation = "about as much as"
+        relation, why = "about as much as", ("so here the offer shares barely separate the "
+                                             "two weightings")
+    elif fe > cw:
+        relation, why = "more than", ("fixed effects weight a stratum by how close its offer "
+                                      "share is to one half, complier weights by its share of "
+                                      "the compliers")
     else:
-        relation = "more than" if fe > cw else "less than"
+        relation, why = "less than", ("so here the strata's sizes and complier shares, not "
+                                      "their offer shares, separate the two weightings")
     return (f"The {_count(n_near, 'stratum', 'strata')} with an offer share between "
             f"{NEAR_HALF[0]:.0%} and {NEAR_HALF[1]:.0%} hold {fe:.0%} of the fixed-effects "
-            f"weight, {relation} the {cw:.0%} they hold under complier weights: fixed effects "
-            "weight a stratum by how close its offer share is to one half, complier weights "
-            "by its share of the compliers.")
+            f"weight, {relation} the {cw:.0%} they hold under complier weights: {why}.")
 
 
 def _attrition(report: OutcomeReport) -> list[str]:
