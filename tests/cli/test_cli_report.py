@@ -280,3 +280,20 @@ def test_a_blinded_run_says_so_in_every_report(tmp_path) -> None:
         # by construction: a blinded run's every output is labelled
         assert "BLINDED rehearsal (seed 1)" in text, name
         assert text.count("BLINDED") >= 3, name  # the banner and each table note
+
+
+def test_the_weight_sentence_follows_the_weights(demo_results) -> None:
+    from strativ.cli.report_words import weight_sentence
+    from strativ.cli.results_read import results_from_document
+
+    doc = json.loads(demo_results.read_text(encoding="utf-8"))
+    for row in doc["strata"]:  # the complier weights put where fixed effects put theirs
+        row["weight_fixed_effects"], row["weight_complier"] = \
+            row["weight_complier"], row["weight_fixed_effects"]
+    swapped = results_from_document(doc).outcomes[0]
+    count, fe, cw = near_half_weights(swapped)
+    # by construction: swapping the weights swaps the shares near one half
+    assert fe < cw - 0.05
+    assert f"hold {fe:.0%} of the fixed-effects weight, less than the {cw:.0%}" \
+        in weight_sentence(swapped)
+    assert "how close its offer share is to one half" not in weight_sentence(swapped)
