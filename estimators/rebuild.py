@@ -13,6 +13,7 @@ So reports and comparisons rebuild the results from results.json alone, without 
 from __future__ import annotations
 
 import dataclasses
+import functools
 import sys
 import types
 import typing
@@ -24,7 +25,9 @@ __all__ = ["rebuild", "rebuildable", "value_of"]
 T = TypeVar("T")
 
 
+@functools.cache
 def _hints(cls: type) -> dict[str, Any]:
+    """Field types of `cls`, resolved once (string annotations are evaluated)."""
     module = sys.modules[cls.__module__]
     return typing.get_type_hints(cls, vars(module))
 
