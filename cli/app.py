@@ -52,14 +52,33 @@ app = typer.Typer(
 )
 
 
-class OutputFormat(str, Enum):
-    """A result file to write."""
+RUN_FORMATS = ("json", "csv", "html", "md", "tex")
+"""Result files `run --format` names (as the spec's output.formats)."""
+REPORT_FORMATS = ("html", "md", "tex")
+"""Reports `report --format` names."""
 
-    json = "json"
-    csv = "csv"
-    html = "html"
-    md = "md"
-    tex = "tex"
+
+def _formats(values: list[str] | None, allowed: tuple[str, ...]) -> tuple[str, ...] | None:
+    """The formats of repeated and/or comma-separated ``--format`` values, in order, once
+    each; None when none was given.
+
+    Raises
+    ------
+    UsageError
+        Naming the unknown format and the known ones (exit 2).
+    """
+    if not values:
+        return None
+    out: list[str] = []
+    for value in values:
+        for name in (part.strip().lower() for part in value.split(",")):
+            if name not in allowed:
+                raise UsageError(f"--format names an unknown format {name!r}",
+                                 "choose from " + ", ".join(allowed)
+                                 + " (comma-separated, e.g. json,csv, or repeated)")
+            if name not in out:
+                out.append(name)
+    return tuple(out)
 
 
 @contextmanager
@@ -146,10 +165,11 @@ def run(
     quiet: Annotated[bool, typer.Option(
         "--quiet", "-q", help="Print no report, only warnings and errors (on stderr); still "
         "write the result files.")] = False,
-    formats: Annotated[list[OutputFormat] | None, typer.Option(
-        "--format", "-f", show_default=False,
-        help="Result file to write: json (results.json), csv (strata.csv), or a report: "
-        "html, md, tex (report.*); repeatable. Default: output.formats of the spec.")] = None,
+    formats: Annotated[list[str] | None, typer.Option(
+        "--format", "-f", show_default=False, metavar="FORMATS",
+        help="Result files to write: json (results.json), csv (strata.csv), or a report: "
+        "html, md, tex (report.*); comma-separated or repeated, e.g. json,csv. Default: "
+        "output.formats of the spec.")] = None,
     if_changed: Annotated[bool, typer.Option(
         "--if-changed", help="Do nothing (exit 0) when the inputs, the spec and the strativ "
         "version equal those of the last run recorded in the output folder.")] = False,
@@ -177,8 +197,7 @@ def run(
 
         gates = parse_gates(fail_on or [])
         code = run_command(spec, out=out, quiet=quiet,
-                           formats=tuple(dict.fromkeys(f.value for f in formats))
-                           if formats else None,
+                           formats=_formats(formats, RUN_FORMATS),
                            if_changed=if_changed, gates=gates, err=err,
                            blind_seed=blind_seed if blind else None,
                            console=None if quiet else make_console())
@@ -234,6 +253,7 @@ def cells(
     Example:  strativ cells specs/demo.yaml --out cells.csv
     """
     with _boundary() as err:
+        from .counting import count
         from .moment_table import moment_sql, write_moment_table
         from .spec import load_spec
 
@@ -259,8 +279,9 @@ def cells(
         except OSError as exc:
             raise UsageError(f"cannot write {target} ({exc.strerror})",
                              "choose a writable folder") from None
-        err.print(Text.assemble("wrote ", Text(str(target)), f" ({len(data.groups):,} groups "
-                                f"of {data.n_rows:,} rows); small groups can reveal single "
+        err.print(Text.assemble("wrote ", Text(str(target)),
+                                f" ({count(len(data.groups), 'group')} of "
+                                f"{count(data.n_rows, 'row')}); small groups can reveal single "
                                 "units: apply your disclosure rules before sharing it"))
 
 
@@ -291,14 +312,6 @@ def compare(
             raise typer.Exit(code)
 
 
-class ReportFormat(str, Enum):
-    """A report to write."""
-
-    html = "html"
-    md = "md"
-    tex = "tex"
-
-
 class FigureFormat(str, Enum):
     """An image format for separate figure files."""
 
@@ -311,10 +324,10 @@ def report(
     results: Annotated[Path, typer.Argument(
         show_default=False, metavar="RESULTS",
         help="A results.json written by 'strativ run' (or its folder).")],
-    formats: Annotated[list[ReportFormat] | None, typer.Option(
-        "--format", "-f", show_default=False,
-        help="Report to write: html (report.html, self-contained), md (report.md) or tex "
-        "(report.tex, booktabs tables); repeatable. Default: html.")] = None,
+    formats: Annotated[list[str] | None, typer.Option(
+        "--format", "-f", show_default=False, metavar="FORMATS",
+        help="Reports to write: html (report.html, self-contained), md (report.md), tex "
+        "(report.tex, booktabs tables); comma-separated or repeated. Default: html.")] = None,
     out: Annotated[Path | None, typer.Option(
         "--out", "-o", file_okay=False, show_default=False,
         help="Folder for the reports (default: the folder of RESULTS).")] = None,
@@ -329,7 +342,7 @@ def report(
     with _boundary() as err:
         from .report_files import write_reports
 
-        chosen = tuple(dict.fromkeys(f.value for f in formats)) if formats else ("html",)
+        chosen = _formats(formats, REPORT_FORMATS) or ("html",)
         written = write_reports(results, chosen, out=out,
                                 figures=None if figures is None else figures.value)
         err.print(Text.assemble("wrote ", Text(", ".join(str(p) for p in written))))

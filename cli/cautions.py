@@ -14,6 +14,7 @@ from strativ.estimators import Comparison
 from strativ.estimators.options import WEAK_FIRST_STAGE_F
 from strativ.estimators.profile import CovariateProfile
 
+from .counting import count
 from .covariate_data import ADJUSTED_VARIANCES
 from .grouped import GroupedData
 from .spec import Spec
@@ -135,7 +136,8 @@ def data_warnings(spec: Spec, dataset: GroupedData) -> list[str]:
             f"{name}: {count}" + (f" ({arms[name][0]} offered, {arms[name][1]} not offered)"
                                   if name in arms else "")
             for name, count in dataset.dropped)
-        out.append(f"{dataset.n_dropped} of {dataset.n_read} rows were dropped because a value "
+        out.append(f"{dataset.n_dropped:,} of {count(dataset.n_read, 'row')} "
+                   f"{'was' if dataset.n_dropped == 1 else 'were'} dropped because a value "
                    f"was missing ({parts})")
     if not dataset.from_moments:
         out += pooled_share_warnings(spec, dataset)
@@ -216,9 +218,10 @@ def fit_warnings(outcomes: Sequence[OutcomeResult]) -> list[str]:
         name = result.outcome
         if result.missing:
             offered = sum(a.missing for a in result.attrition if a.arm == "offered")
-            out.append(f"outcome '{name}' is missing in {result.missing} rows "
-                       f"({offered} offered, {result.missing - offered} not offered); they are "
-                       "left out for this outcome (attrition by stratum and arm in results.json)")
+            out.append(f"outcome '{name}' is missing in {count(result.missing, 'row')} "
+                       f"({offered:,} offered, {result.missing - offered:,} not offered); "
+                       f"{'it is' if result.missing == 1 else 'they are'} left out for this "
+                       "outcome (attrition by stratum and arm in results.json)")
         test = result.attrition_test
         if test is not None and test.p_value is not None and test.p_value < ATTRITION_LEVEL:
             more = "offered" if (test.difference or 0.0) > 0 else "not offered"

@@ -104,10 +104,12 @@ def _inputs(console: Console, inputs: InputChanges) -> None:
                        f"{len(inputs.changed)} changed, {inputs.unchanged} unchanged"))
     for label, files in (("added  ", inputs.added), ("removed", inputs.removed)):
         for f in files:
-            _indented(console, f"{label}  ", f.name, f" ({_count(f.rows)} rows)")
+            _indented(console, f"{label}  ", f.name,
+                      f" ({_count(f.rows)} {'row' if f.rows == 1 else 'rows'})")
     for before, after in inputs.changed:
         _indented(console, "changed  ", before.name, f" (sha256 {before.sha256[:8]} \u2192 "
-                  f"{after.sha256[:8]}, {_count(before.rows)} \u2192 {_count(after.rows)} rows)")
+                  f"{after.sha256[:8]}, {_count(before.rows)} \u2192 {_count(after.rows)} "
+                  f"{'row' if after.rows == 1 else 'rows'})")
 
 
 def _counts(console: Console, counts: tuple[CountChange, ...]) -> None:

@@ -9,8 +9,10 @@ from __future__ import annotations
 
 import io
 import os
+import re
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
+from typing import Any
 
 from rich.console import Console
 from rich.text import Text
@@ -19,13 +21,25 @@ from .errors import CliError
 
 __all__ = ["make_console", "render_error"]
 
+_TRAILING = re.compile(r"[ \t]+(?=\n|$)")
+"""Spaces and tabs at the end of a line."""
+
 
 class _Console(Console):
-    """A console that stops printing, instead of exiting, when its reader goes away.
+    """A console that stops printing, instead of exiting, when its reader goes away, and
+    writes no trailing spaces when its output is not a terminal.
 
     `strativ run ... | head` closes the pipe early; the run must still write its result
     files and exit 0, so the rest of the report is dropped rather than the run aborted.
+    Padded blocks (the reading, the notes) end their lines with spaces up to the block's
+    width; in a file or a pipe those spaces only get in the way of diffs and greps.
     """
+
+    def _render_buffer(self, buffer: Any) -> str:
+        text = super()._render_buffer(buffer)
+        if self.is_terminal:
+            return text
+        return _TRAILING.sub("", text)
 
     def on_broken_pipe(self) -> None:
         self.quiet = True

@@ -22,6 +22,7 @@ import numpy as np
 
 from strativ.estimators import OUTCOME_LIMIT
 
+from .counting import count
 from .errors import DataError
 from .spec import Spec, suggest
 from .tables import OTHER_DELIMITERS, Table, read_table
@@ -393,7 +394,8 @@ def _assemble(spec: Spec, files: list[InputFile], pieces: list[dict[str, np.ndar
     cols = spec.columns
     n_kept = sum(piece["__row"].size for piece in pieces)
     if n_kept == 0:
-        raise DataError(None, None, (), f"no rows left: all {n_read} rows miss an offer, "
+        raise DataError(None, None, (), f"no rows left: {'the' if n_read == 1 else 'all'} "
+                        f"{count(n_read, 'row')} {'misses' if n_read == 1 else 'miss'} an offer, "
                         "take-up or stratum value", "fill in the missing values")
     values = [stack(name) for name in cols.stratum]
     stratum, stratum_parts = stratum_labels(spec, values, stack("__file"))

@@ -63,7 +63,8 @@ def format_number(value: float | None, *, digits: int = 4) -> str:
     Returns
     -------
     str
-        The formatted number, using a true minus sign.
+        The formatted number, using a true minus sign in front (an exponent's sign stays
+        ASCII: ``−1.218e-06``).
     """
     if value is None or not math.isfinite(value):
         return "undefined"
@@ -75,7 +76,9 @@ def format_number(value: float | None, *, digits: int = 4) -> str:
     else:
         decimals = max(0, digits - 1 - math.floor(math.log10(size)))
         text = f"{value:,.{decimals}f}"
-    return text.replace("-", "\u2212")
+    # a true minus for the sign only: an exponent keeps the ASCII one, so that a copied
+    # number parses once its leading sign is made ASCII
+    return "\u2212" + text[1:] if text.startswith("-") else text
 
 
 def format_interval(interval: Any) -> str:

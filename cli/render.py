@@ -23,6 +23,7 @@ from strativ.estimators.profile import CovariateProfile
 
 from .cautions import variance_used
 from .console import make_console, render_error
+from .counting import count
 from .grouped import GroupedData
 from .reading import (
     ASSUMPTIONS,
@@ -119,11 +120,12 @@ def _share(value: float | None) -> str:
 
 def _header(console: Console, spec: Spec, dataset: GroupedData) -> None:
     console.print(_t(spec.title, "bold"))
-    files = ", ".join(f"{f.path.name} ({f.rows:,} rows)" for f in dataset.files)
+    files = ", ".join(f"{f.path.name} ({count(f.rows, 'row')})" for f in dataset.files)
     console.print(Text.assemble("data      ", _t(files)))
-    rows = f"{dataset.n_rows:,} rows used"
+    rows = f"{count(dataset.n_rows, 'row')} kept"
     if dataset.n_dropped:
-        rows += f" ({dataset.n_dropped:,} incomplete rows dropped of {dataset.n_read:,})"
+        rows += f" ({count(dataset.n_dropped, 'incomplete row')} dropped of " \
+            f"{dataset.n_read:,})"
     console.print(Text.assemble("rows      ", rows))
     source = spec.offer_probability
     probs = {"estimated": "estimated from the data",
@@ -177,7 +179,8 @@ def _strata_table(console: Console, result: OutcomeResult) -> str | None:
         rest = len(rows) - len(shown)
         hidden = sum(r.n for r in rows) - sum(r.n for r in shown)
         caption = (f"{len(shown)} of {len(rows)} strata shown: those that move the "
-                   f"fixed-effects estimate most; {rest} more ({hidden:,} rows) are in strata.csv")
+                   f"fixed-effects estimate most; {rest} more ({count(hidden, 'row')}) are in "
+                   "strata.csv")
     _print_table(console, _col("stratum", (r.label for r in shown)), [
         [_col("n", (f"{r.n:,}" for r in shown)),
          _col("offer\nshare", (_share(r.offer_share) for r in shown)),
@@ -248,8 +251,13 @@ def _outcome(console: Console, result: OutcomeResult) -> None:
     n_excluded = len(comp.strata.excluded)
     console.print()
     console.rule(Text.assemble("outcome ", _t(result.outcome, "bold")), align="left")
-    console.print(f"{first.n_units:,} rows, {first.n_strata} strata used, {n_excluded} excluded"
-                  + (f"; {result.missing:,} rows without this outcome left out"
+    from .results import excluded_rows
+
+    gone = excluded_rows(comp)
+    console.print(f"{count(result.cells.n_units - gone, 'row')} used in "
+                  f"{count(first.n_strata, 'stratum', 'strata')}; "
+                  f"{count(n_excluded, 'stratum', 'strata')} excluded ({count(gone, 'row')})"
+                  + (f"; {count(result.missing, 'row')} without this outcome left out"
                      if result.missing else ""))
     test = result.attrition_test
     if not result.missing:
@@ -299,7 +307,7 @@ def _planning(console: Console, result: OutcomeResult) -> None:
             f"{p.level:.0%} level ({format_number(p.multiplier, digits=3)} standard errors)")
     if p.target_effect is not None:
         text += (f"; an effect of {format_number(p.target_effect)} needs about "
-                 f"{p.rows_needed:,} rows at today's complier share and variance ("
+                 f"{count(p.rows_needed, 'row')} at today's complier share and variance ("
                  + (f"{p.further_rows:,} more" if p.further_rows else "today's suffice")
                  + ")")
     console.print(_indented(_t(text)))
@@ -362,7 +370,8 @@ def _families(console: Console, run: Run) -> None:
     ri = run.randomization_family
     if ri is not None:
         console.print()
-        console.print(f"randomization p-values on the {ri.rows:,} rows with every outcome, "
+        console.print(f"randomization p-values on the {count(ri.rows, 'row')} with every "
+                      "outcome, "
                       "and Westfall-Young adjusted from the same re-draws:")
         _print_table(console, _col("outcome", ri.outcomes), [
             [_col("p", map(_p_text, ri.p_value)),
@@ -425,7 +434,7 @@ def render_check(console: Console, spec: Spec, dataset: GroupedData, summary: De
     console.print(f"take-up   {_share(summary.take_up_offered)} of the offered, "
                   f"{_share(summary.take_up_not_offered)} of the not offered")
     for name, missing in summary.missing_outcomes:
-        console.print(Text.assemble("outcome   ", _t(name), f": {missing:,} rows missing"
+        console.print(Text.assemble("outcome   ", _t(name), f": {count(missing, 'row')} missing"
                                     if missing else ": complete"))
     shown = summary.strata[:FULL_STRATA]
     columns = [_col("n", (f"{s.n:,}" for s in shown)),

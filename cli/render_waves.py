@@ -5,6 +5,7 @@ from __future__ import annotations
 from rich.console import Console
 from rich.text import Text
 
+from .counting import count
 from .reading import ESTIMATOR_NAMES, format_number
 from .render import _col, _print_table
 from .runner import Run
@@ -37,9 +38,13 @@ def render_waves(console: Console, run: Run) -> None:
     console.rule(Text("waves", "bold"), align="left")
     rule = "each wave's part of a stratum is its own stratum" if waves.strata == "separate" \
         else "strata pool their rows across waves (waves.pool)"
-    source = f"the {len(waves.names)} values of column {waves.column} are" if waves.column \
-        else f"{len(waves.names)} input files are"
-    console.print(f"{source} {len(waves.names)} waves; {rule}. "
+    n = len(waves.names)
+    if waves.column:
+        source = f"the {n} values of column {waves.column} are" if n != 1 \
+            else f"the one value of column {waves.column} is"
+    else:
+        source = f"{n} input files are"
+    console.print(f"{source} {count(n, 'wave')}; {rule}. "
                   "Each wave fitted alone, standard errors in brackets:")
     for outcome in run.spec.columns.outcome:
         fits = [f for f in waves.fits if f.outcome == outcome]

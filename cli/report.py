@@ -13,6 +13,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
+from .counting import count
 from .reading import ASSUMPTIONS, REVIEW, reading
 from .report_tables import (
     ReportTable,
@@ -65,7 +66,7 @@ class OutcomeSection:
 
 
 def _excluded(report: OutcomeReport) -> tuple[str, ...]:
-    return tuple(f"{e.label} ({e.n:,} rows): {e.reason}"
+    return tuple(f"{e.label} ({count(e.n, 'row')}): {e.reason}"
                  for e in report.comparison.strata.excluded)
 
 
@@ -113,7 +114,7 @@ def _context(results: ResultsFile, figures: bool) -> dict[str, Any]:
     return {
         "title": results.title, "created": results.created, "version": results.tool_version,
         "blinded": results.blinded,
-        "rows_line": f"{rows['read']:,} rows read, {rows['kept']:,} kept, "
+        "rows_line": f"{count(rows['read'], 'row')} read, {rows['kept']:,} kept, "
                      f"{rows['dropped_incomplete']:,} dropped as incomplete",
         "sections": [_section(results, r, figures) for r in results.outcomes],
         "run_panels": run_panels, "warnings": list(results.warnings),

@@ -14,6 +14,7 @@ import re
 from dataclasses import dataclass
 from typing import Any
 
+from .counting import count
 from .reading import ESTIMATOR_NAMES
 from .results_read import OutcomeReport, ResultsFile
 
@@ -48,10 +49,6 @@ def _count(value: int | None) -> str:
     return MISSING if value is None else str(int(value))
 
 
-def _plural(n: int, one: str, many: str) -> str:
-    return f"{n} {one if n == 1 else many}"
-
-
 @dataclass(frozen=True, slots=True)
 class ReportTable:
     """One table of the report, as text cells."""
@@ -81,9 +78,9 @@ def _note(results: ResultsFile, report: OutcomeReport) -> str:
     excluded = len(comparison.strata.excluded)
     parts = [f"Variance: {first.variance}" if first else "",
              f"{level} intervals" if first else "",
-             f"N = {report.rows_used} rows in "
-             f"{_plural(len(comparison.strata.rows), 'stratum', 'strata')}",
-             f"{_plural(excluded, 'stratum', 'strata')} excluded"]
+             f"N = {count(report.rows_used, 'row')} in "
+             f"{count(len(comparison.strata.rows), 'stratum', 'strata')}",
+             f"{count(excluded, 'stratum', 'strata')} excluded"]
     if results.blinded is not None:
         parts.append(f"BLINDED rehearsal (seed {results.blinded}): no estimate is a result")
     parts.append("a LATE assumes the offer random within strata, affecting outcomes only "
@@ -254,7 +251,7 @@ def families_table(results: ResultsFile) -> ReportTable | None:
     return ReportTable(
         key="outcomes", caption="Several outcomes: p-values adjusted for multiplicity",
         columns=("estimator", "outcome", "p", "Holm", "Benjamini-Hochberg"), rows=tuple(rows),
-        note=f"{_plural(len(results.families[0].outcomes), 'outcome', 'outcomes')} per "
+        note=f"{count(len(results.families[0].outcomes), 'outcome')} per "
              "family; Holm controls the family-wise error, Benjamini-Hochberg the false "
              "discovery rate.")
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from .counting import count
 from .reading import format_interval, format_number
 from .results_read import OutcomeReport, ResultsFile
 
@@ -21,10 +22,6 @@ NEAR_HALF = (0.35, 0.65)
 
 def _p(p: float | None) -> str:
     return "p undefined" if p is None else ("p < 0.001" if p < 0.001 else f"p = {p:.3f}")
-
-
-def _count(n: int, one: str, many: str) -> str:
-    return f"{n:,} {one if n == 1 else many}"
 
 
 def near_half_weights(report: OutcomeReport) -> tuple[int, float, float]:
@@ -46,7 +43,7 @@ def weight_sentence(report: OutcomeReport) -> str:
     total = len(report.comparison.strata.rows)
     if n_near == 0 or n_near == total:
         which = "none" if n_near == 0 else "all"
-        return (f"In {which} of the {_count(total, 'stratum', 'strata')} is the offer share "
+        return (f"In {which} of the {count(total, 'stratum', 'strata')} is the offer share "
                 f"between {NEAR_HALF[0]:.0%} and {NEAR_HALF[1]:.0%}, so offer shares do not "
                 "separate the two weightings here; the figure shows each stratum's weights.")
     if abs(fe - cw) < 0.02:
@@ -59,7 +56,7 @@ def weight_sentence(report: OutcomeReport) -> str:
     else:
         relation, why = "less than", ("so here the strata's sizes and complier shares, not "
                                       "their offer shares, separate the two weightings")
-    return (f"The {_count(n_near, 'stratum', 'strata')} with an offer share between "
+    return (f"The {count(n_near, 'stratum', 'strata')} with an offer share between "
             f"{NEAR_HALF[0]:.0%} and {NEAR_HALF[1]:.0%} hold {fe:.0%} of the fixed-effects "
             f"weight, {relation} the {cw:.0%} they hold under complier weights: {why}.")
 
@@ -104,12 +101,12 @@ def _planning(report: OutcomeReport) -> list[str]:
         return []
     if plan.mde is None:
         return [f"No minimum detectable effect: {plan.reason or 'undefined'}."]
-    out = [f"At {plan.rows:,} rows the smallest effect detected with {plan.power:.0%} power at "
-           f"the {plan.level:.0%} level is {format_number(plan.mde)}."]
+    out = [f"At {count(plan.rows, 'row')} the smallest effect detected with {plan.power:.0%} "
+           f"power at the {plan.level:.0%} level is {format_number(plan.mde)}."]
     if plan.target_effect is not None and plan.rows_needed is not None:
         further = plan.further_rows or 0
         out.append(f"An effect of {format_number(plan.target_effect)} needs about "
-                   f"{plan.rows_needed:,} rows at today's complier share and variance"
+                   f"{count(plan.rows_needed, 'row')} at today's complier share and variance"
                    + (f", {further:,} more than today." if further > 0
                       else ", which today's rows already reach."))
     return out
@@ -142,7 +139,7 @@ def _balance(results: ResultsFile) -> list[str]:
     else:
         verdict = "rejects" if p < 0.05 else "does not reject"
         joint = f"The joint test of balance {verdict} balance ({_p(p)})."
-    total = _count(len(profile.rows), "covariate", "covariates")
+    total = count(len(profile.rows), "covariate", "covariates")
     if not flagged:
         return [f"No standardized mean difference exceeds {profile.flag:g} in absolute value "
                 f"({total}).", joint]
@@ -158,7 +155,7 @@ def _waves(results: ResultsFile) -> list[str]:
     source = f"values of {waves.column}" if waves.column else "input files"
     rule = "each (stratum × wave) is its own stratum" if waves.strata == "separate" \
         else "strata pool their rows across waves"
-    out = [f"{_count(len(waves.names), 'wave', 'waves')} ({source}); {rule}."]
+    out = [f"{count(len(waves.names), 'wave', 'waves')} ({source}); {rule}."]
     test = waves.share_test
     if test is not None and test.p_value is not None:
         verdict = "differ beyond noise" if test.p_value < 0.05 else "do not differ beyond noise"

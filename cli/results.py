@@ -34,11 +34,12 @@ __all__ = [
     "strata_table",
     "strata_csv_columns",
     "stratum_columns",
+    "remove_stale_outputs",
     "write_outputs",
     "load_schema",
 ]
 
-SCHEMA_VERSION = "2.0"
+SCHEMA_VERSION = "2.1"
 """Version of the results.json layout; bumped when a field changes meaning or is removed."""
 FILE_NAMES = {"json": "results.json", "csv": "strata.csv", "html": "report.html",
               "md": "report.md", "tex": "report.tex"}
@@ -183,6 +184,11 @@ def resolved_spec(spec: Spec, *, out_dir: Path | None = None,
     return out
 
 
+def excluded_rows(comparison: Any) -> int:
+    """Rows with the outcome in strata the estimators left out (no both arms, ...)."""
+    return sum(int(e.n) for e in comparison.strata.excluded)
+
+
 def _now() -> str:
     return datetime.now(timezone.utc).isoformat(timespec="seconds")
 
@@ -225,7 +231,8 @@ def results_document(run: Run, *, created: str | None = None, out_dir: Path | No
                                **stratum_columns(run, excluded["label"])})
         comparisons.append({
             "outcome": result.outcome,
-            "rows_used": result.cells.n_units,
+            "rows_used": result.cells.n_units - excluded_rows(result.comparison),
+            "rows_in_excluded_strata": excluded_rows(result.comparison),
             "rows_missing_outcome": result.missing,
             "attrition_test": None if result.attrition_test is None
             else result.attrition_test.to_dict(),
@@ -295,6 +302,8 @@ def _cell(value: Any) -> str:
         return ""
     if isinstance(value, bool):
         return "true" if value else "false"
+    if isinstance(value, float) and value == 0:
+        return "0.0"  # never "-0.0"
     return str(value)
 
 
@@ -336,6 +345,36 @@ def strata_table(run: Run) -> str:
                       **mark}
             writer.writerow([_cell(record.get(c)) for c in header])
     return buffer.getvalue()
+
+
+def remove_stale_outputs(out_dir: Path, formats: tuple[str, ...]) -> list[Path]:
+    """Remove the result files of formats this run did not write, left by an earlier run in
+    `out_dir` (only the tool's own file names: results.json, strata.csv, report.*), so that
+    the folder never mixes two runs.
+
+    Parameters
+    ----------
+    out_dir : Path
+        The run's output folder.
+    formats : tuple of str
+        The formats this run wrote.
+
+    Returns
+    -------
+    list of Path
+        The files removed (those that could not be removed are left and not listed).
+    """
+    removed = []
+    for fmt, name in FILE_NAMES.items():
+        target = out_dir / name
+        if fmt in formats or not target.is_file():
+            continue
+        try:
+            target.unlink()
+        except OSError:
+            continue
+        removed.append(target)
+    return removed
 
 
 def write_outputs(run: Run, out_dir: Path, formats: tuple[str, ...], *,

@@ -53,7 +53,9 @@ class OutcomeReport:
     comparison: Comparison
     """The estimators side by side, with the per-stratum table and diagnostics."""
     rows_used: int
-    """Rows in the analysis sample of this outcome (`comparisons[].rows_used`)."""
+    """Rows with the outcome in the strata the estimators used (`comparisons[].rows_used`)."""
+    rows_in_excluded_strata: int
+    """Rows with the outcome in strata the estimators left out."""
     rows_missing_outcome: int
     """Kept rows without this outcome."""
     adjusted: tuple[AdjustedEstimate, ...]
@@ -157,6 +159,7 @@ def _outcome(document: Mapping[str, Any], entry: Mapping[str, Any]) -> OutcomeRe
 
     return OutcomeReport(
         outcome=name, comparison=comparison, rows_used=int(entry["rows_used"]),
+        rows_in_excluded_strata=int(entry["rows_in_excluded_strata"]),
         rows_missing_outcome=int(entry["rows_missing_outcome"]),
         adjusted=tuple(AdjustedEstimate.from_dict(a)
                        for a in _of(document["adjusted_estimates"], name)),

@@ -116,7 +116,13 @@ def run_command(spec_path: Path, *, out: Path | None, quiet: bool,
     from .history import append_record, read_history, run_record
     from .plan_lock import check_plan
     from .render import render_run, render_warnings
-    from .results import check_output_paths, results_document, tool_version, write_outputs
+    from .results import (
+        check_output_paths,
+        remove_stale_outputs,
+        results_document,
+        tool_version,
+        write_outputs,
+    )
     from .runner import run_spec
     from .spec import load_spec
 
@@ -146,6 +152,7 @@ def run_command(spec_path: Path, *, out: Path | None, quiet: bool,
     document = results_document(result, out_dir=out_dir, formats=chosen,
                                 plan=None if plan is None else plan.to_dict())
     written = write_outputs(result, out_dir, chosen, document=document)
+    stale = remove_stale_outputs(out_dir, chosen)
     notes = _history_notes(history)
     if plan is not None:
         notes += [f"deviation from the plan locked in {plan.lock} on {plan.locked}: {d}"
@@ -158,6 +165,9 @@ def run_command(spec_path: Path, *, out: Path | None, quiet: bool,
     render_warnings(err, [*result.warnings, *notes])
     if not quiet:
         err.print(Text.assemble("wrote ", Text(", ".join(str(p) for p in written))))
+    if stale:  # said even with --quiet: files disappeared from the folder
+        err.print(Text.assemble("removed ", Text(", ".join(p.name for p in stale)),
+                                " left from an earlier run (not among this run's formats)"))
     failed = failed_gates(gates, document)
     for gate, findings in failed:
         err.print(Text.assemble(Text("gate failed: ", style="bold red"), gate.text, ": ",

@@ -329,12 +329,14 @@ def assignment_notes(counts: list[tuple[int, int]] | None, strata: str) -> str:
     if counts is None:
         return f"{head}. {unit}."
     if not off and len(telling) >= _MIN_TELLING:
-        return (f"{head}, and here, in all {len(both)} strata ({strata}) with both arms, the "
+        where = "in the one stratum" if len(both) == 1 else f"in all {len(both)} strata"
+        return (f"{head}, and here, {where} ({strata}) with both arms, the "
                 "offered count is the stratum size times a round share (a multiple of 5 %), "
                 f"rounded: the mark of such a draw. {unit}.")
     if off:
         n, k = off[0]
-        return (f"{head}. Here {len(off)} of {len(both)} strata ({strata}) offered no round "
+        return (f"{head}. Here {len(off)} of {len(both)} "
+                f"{'stratum' if len(both) == 1 else 'strata'} ({strata}) offered no round "
                 f"share of their units (e.g. {k} of {n}): a count set by a budget gives that, "
                 f"and so do offers drawn unit by unit. {unit} (wider intervals, the cautious "
                 "choice when unsure).")

@@ -29,7 +29,8 @@ __all__ = [
 
 
 def clean(value: Any) -> Any:
-    """Turn a value into JSON-ready data: numpy scalars to Python, NaN/inf to None."""
+    """Turn a value into JSON-ready data: numpy scalars to Python, NaN/inf to None, -0.0 to
+    0.0."""
     if hasattr(value, "to_dict"):
         return value.to_dict()
     if isinstance(value, (list, tuple)):
@@ -40,6 +41,8 @@ def clean(value: Any) -> Any:
         value = value.item()
     if isinstance(value, float) and not math.isfinite(value):
         return None
+    if isinstance(value, float) and value == 0:
+        return 0.0  # a negative zero reads as a sign that is not there
     return value
 
 

@@ -64,7 +64,8 @@ def test_demo_runs_and_prints_the_comparison(demo) -> None:
         for line in lines
     )
     # source: demo_data/README.md, ten districts, each drawn separately in three rounds
-    assert any(line.startswith("6,000 rows, 30 strata used, 0 excluded") for line in lines)
+    assert any(line.startswith("6,000 rows used in 30 strata; 0 strata excluded (0 rows)")
+               for line in lines)
     for name in ("fixed effects", "weighted (IPW)", "interacted"):
         assert any(line.startswith(name + " ") for line in lines), name
     flat = " ".join(result.stdout.split())
@@ -120,7 +121,7 @@ def test_demo_inputs_are_fingerprinted(demo) -> None:
         assert entry["size_bytes"] == path.stat().st_size
         assert entry["rows"] == len(path.read_text().splitlines()) - 1
     assert doc["spec"]["columns"]["stratum"] == ["district"]
-    assert doc["tool"]["name"] == "strativ" and doc["schema_version"] == "2.0"
+    assert doc["tool"]["name"] == "strativ" and doc["schema_version"] == "2.1"
 
 
 def _core(frame: pd.DataFrame, outcome: str, **options):
