@@ -1,5 +1,5 @@
 """Allow `python -m strativ.cli`, the same as the `strativ` command."""
 
-from .app import main
+from .entry import main
 
 main()

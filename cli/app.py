@@ -32,14 +32,14 @@ from rich.text import Text
 from typer.core import TyperCommand
 
 from .console import make_console, render_error
-from .errors import EXIT_INTERNAL, CliError, UsageError
+from .entry import EXIT_INTERRUPTED, EXIT_TERMINATED
+from .errors import EXIT_INTERNAL, CliError, Terminated, UsageError
 
 if TYPE_CHECKING:
     from rich.console import Console
 
 __all__ = ["app", "main"]
 
-EXIT_INTERRUPTED = 130
 
 app = typer.Typer(
     name="strativ",
@@ -95,6 +95,9 @@ def _boundary() -> Iterator[Console]:
     except KeyboardInterrupt:
         err.print("interrupted")
         raise typer.Exit(EXIT_INTERRUPTED) from None
+    except Terminated:
+        err.print("terminated")
+        raise typer.Exit(EXIT_TERMINATED) from None
     except Exception as exc:  # the last gate: never show a traceback
         err.print(Text.assemble(
             Text("internal error: ", style="bold red"),
@@ -221,13 +224,22 @@ def check(
     with _boundary() as err:
         from .grouped import group_data
         from .render import render_check, render_warnings
-        from .results import check_output_paths
-        from .runner import check_with_core, data_warnings, design_probabilities, summarize_design
+        from .results import check_output_paths, check_writable
+        from .runner import (
+            check_with_core,
+            data_warnings,
+            design_probabilities,
+            require_outcome_values,
+            summarize_design,
+        )
         from .spec import load_spec
 
         loaded = load_spec(spec)
         check_output_paths(loaded, loaded.output_dir, loaded.formats)
+        check_writable(loaded.output_dir)
         dataset = group_data(loaded)
+        for name in dataset.outcomes:  # as run refuses it, before any design rule
+            require_outcome_values(dataset, name)
         probabilities = design_probabilities(loaded, dataset)
         summary = summarize_design(loaded, dataset)
         design_notes = check_with_core(loaded, dataset, probabilities)
@@ -416,6 +428,9 @@ def main() -> None:
         if isinstance(exc, KeyboardInterrupt):
             sys.stderr.write("interrupted\n")
             sys.exit(EXIT_INTERRUPTED)
+        if isinstance(exc, Terminated):
+            sys.stderr.write("terminated\n")
+            sys.exit(EXIT_TERMINATED)
         sys.stderr.write(f"internal error: {type(exc).__name__}: {exc}\n"
                          "  This is a bug in strativ; please report it.\n")
         sys.exit(EXIT_INTERNAL)

@@ -196,6 +196,11 @@ def load_results(path: Path, *, role: str = "results") -> dict[str, Any]:
     where = f"{role} file {path}"
     fix = "give a results.json written by 'strativ run SPEC --out DIR' (DIR/results.json)"
     target = path / "results.json" if path.is_dir() else path
+    from .files import special_file
+
+    kind = special_file(target)
+    if kind is not None:  # a pipe would wait forever
+        raise UsageError(f"{where}: not a regular file but {kind}", fix)
     try:
         text = target.read_text(encoding="utf-8")
     except FileNotFoundError:

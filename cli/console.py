@@ -15,9 +15,10 @@ from contextlib import contextmanager
 from typing import Any
 
 from rich.console import Console
+from rich.segment import Segment
 from rich.text import Text
 
-from .errors import CliError
+from .errors import CliError, safe_text
 
 __all__ = ["make_console", "render_error"]
 
@@ -36,7 +37,11 @@ class _Console(Console):
     """
 
     def _render_buffer(self, buffer: Any) -> str:
-        text = super()._render_buffer(buffer)
+        # a user's string (a label, a column or file name) never acts on the terminal: its
+        # control characters are shown escaped; rich's own codes are control segments
+        safe = (s if s.control or s.text == "\n" else Segment(safe_text(s.text), s.style)
+                for s in buffer)
+        text = super()._render_buffer(safe)
         if self.is_terminal:
             return text
         return _TRAILING.sub("", text)

@@ -7,6 +7,7 @@ stderr and an exit code at one boundary. Exit codes: 0 success, 1 unexpected int
 
 from __future__ import annotations
 
+import re
 from collections.abc import Sequence
 from pathlib import Path
 
@@ -19,6 +20,8 @@ __all__ = [
     "SpecError",
     "DataError",
     "UsageError",
+    "Terminated",
+    "safe_text",
 ]
 
 EXIT_OK = 0
@@ -29,6 +32,40 @@ EXIT_USAGE = 2
 """The command line or the spec is wrong (unknown key, bad value, refused output path)."""
 EXIT_DATA = 3
 """The data cannot be used as the spec describes (missing column, bad codes, empty file)."""
+
+
+_CONTROL = re.compile("[\x00-\x08\x0b-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069]")
+"""Characters a terminal or a log could act on: C0 and C1 controls except tab and newline,
+DEL, and the bidirectional overrides (which reorder what a reader sees)."""
+MESSAGE_LIMIT = 600
+"""Characters of a message or hint shown at most; a longer one is cut with a note."""
+
+
+def _escape(match: re.Match[str]) -> str:
+    code = ord(match.group())
+    return f"\\x{code:02x}" if code < 0x100 else f"\\u{code:04x}"
+
+
+def safe_text(text: str, limit: int | None = None) -> str:
+    """`text` with control characters escaped (``\\x1b``, ``\\u202e``) and, past `limit`
+    characters, cut with a note of how much was left out.
+
+    Parameters
+    ----------
+    text : str
+        Any text that may hold a user's value (a label, a column name, a file name).
+    limit : int, optional
+        Largest length kept (default: no cut).
+
+    Returns
+    -------
+    str
+        Text safe to print on a terminal or write to a log line.
+    """
+    text = _CONTROL.sub(_escape, str(text))
+    if limit is not None and len(text) > limit:
+        return f"{text[:limit]}... ({len(text) - limit:,} more characters)"
+    return text
 
 
 def _shown_path(path: Path) -> str:
@@ -45,9 +82,10 @@ class CliError(Exception):
     exit_code: int = EXIT_INTERNAL
 
     def __init__(self, message: str, hint: str | None = None) -> None:
+        message = safe_text(message, MESSAGE_LIMIT)
         super().__init__(message)
         self.message = message
-        self.hint = hint
+        self.hint = None if hint is None else safe_text(hint, MESSAGE_LIMIT)
 
     def where(self) -> str | None:
         """Return the location prefix of the message (file, line, row), or None."""
@@ -100,7 +138,7 @@ class SpecError(CliError):
     def where(self) -> str | None:
         parts = []
         if self.path is not None:
-            parts.append(_shown_path(self.path))
+            parts.append(safe_text(_shown_path(self.path), 200))
         if self.line is not None:
             parts.append(f"line {self.line}")
         return ", ".join(parts) or None
@@ -141,9 +179,9 @@ class DataError(CliError):
     def where(self) -> str | None:
         parts = []
         if self.file is not None:
-            parts.append(self.file.name)
+            parts.append(safe_text(self.file.name, 120))
         if self.column is not None:
-            parts.append(f"column '{self.column}'")
+            parts.append(f"column '{safe_text(self.column, 80)}'")
         return ", ".join(parts) or None
 
 
@@ -160,3 +198,8 @@ class UsageError(CliError):
     """
 
     exit_code = EXIT_USAGE
+
+
+class Terminated(BaseException):
+    """SIGTERM arrived (`timeout`, make or a scheduler stopping the run): like Ctrl-C, it
+    unwinds the command so that open temporary files are removed, then exits 143."""

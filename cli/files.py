@@ -11,9 +11,10 @@ from __future__ import annotations
 import errno
 import os
 import secrets
+import stat
 from pathlib import Path
 
-__all__ = ["atomic_write_bytes", "temporary_file"]
+__all__ = ["atomic_write_bytes", "remove_stale_temporaries", "special_file", "temporary_file"]
 
 _PREFIX = ".strativ-"
 _SUFFIX = ".tmp"
@@ -47,7 +48,7 @@ def temporary_file(directory: Path) -> tuple[int, Path]:
     with mode 0666; the kernel applies the umask and any default ACL of the folder.
     """
     for _ in range(_TRIES):
-        candidate = directory / f"{_PREFIX}{secrets.token_hex(8)}{_SUFFIX}"
+        candidate = directory / f"{_PREFIX}{os.getpid()}-{secrets.token_hex(8)}{_SUFFIX}"
         try:
             return os.open(candidate, _FLAGS, 0o666), candidate
         except FileExistsError:
@@ -80,3 +81,77 @@ def atomic_write_bytes(target: Path, payload: bytes) -> None:
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
+
+
+def special_file(path: Path) -> str | None:
+    """What `path` is when it is not a regular file ("a named pipe", "a device", ...), or
+    None for a regular file or a path that does not exist (symbolic links are followed)."""
+    try:
+        mode = os.stat(path).st_mode
+    except OSError:
+        return None
+    if stat.S_ISREG(mode):
+        return None
+    if stat.S_ISFIFO(mode):
+        return "a named pipe"
+    if stat.S_ISCHR(mode) or stat.S_ISBLK(mode):
+        return "a device"
+    if stat.S_ISSOCK(mode):
+        return "a socket"
+    if stat.S_ISDIR(mode):
+        return "a directory"
+    return "a special file"
+
+
+STALE_AFTER = 3600.0
+"""Seconds after which a temporary file whose writer cannot be told is taken as stale."""
+
+
+def _alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except OSError:  # exists, owned by someone else
+        return True
+    return True
+
+
+def remove_stale_temporaries(directory: Path) -> list[Path]:
+    """Remove strativ's temporary files that a killed run left in `directory`.
+
+    A temporary file is ``.strativ-<pid>-<random>.tmp``: it is stale when no process has that
+    id any more (SIGKILL, a power cut), or, for a name without an id, when it is older than
+    `STALE_AFTER`. Files of a run still going are left alone; nothing else is touched.
+
+    Parameters
+    ----------
+    directory : Path
+        An output folder.
+
+    Returns
+    -------
+    list of Path
+        The files removed.
+    """
+    import time
+
+    removed = []
+    try:
+        candidates = list(directory.glob(f"{_PREFIX}*{_SUFFIX}"))
+    except OSError:
+        return removed
+    for path in candidates:
+        middle = path.name[len(_PREFIX):-len(_SUFFIX)]
+        pid_text = middle.split("-", 1)[0] if "-" in middle else ""
+        try:
+            if pid_text.isdigit():
+                stale = int(pid_text) != os.getpid() and not _alive(int(pid_text))
+            else:
+                stale = time.time() - path.stat().st_mtime > STALE_AFTER
+            if stale and path.is_file():
+                path.unlink()
+                removed.append(path)
+        except OSError:
+            continue
+    return removed

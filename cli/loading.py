@@ -128,6 +128,24 @@ def _row_text(row: int, line: int) -> str:
     return f"row {row} (line {line})" if line else f"row {row}"
 
 
+BINARY_SNIFF = 65536
+"""Bytes at the start of a text file in which a NUL marks the file as binary (`tables`); a
+NUL further on is refused by `file_digest` with its line."""
+
+
+def _refuse_nul(path: Path, at: int) -> None:
+    """Refuse a text file with a NUL byte at offset `at`, naming its line and data row."""
+    with path.open("rb") as handle:
+        before = handle.read(at)
+    line = before.count(b"\n") + 1
+    column = at - before.rfind(b"\n")
+    raise DataError(path, None, (max(line - 1, 1),) if line > 1 else (),
+                    f"a NUL byte (\\x00) at line {line} (data row {line - 1}), byte "
+                    f"{column}: a text file holds none, and a reader could "
+                    "split or merge fields there", "export the file again as plain text, or "
+                    "remove the NUL bytes (for example: tr -d '\\000' < in.csv > out.csv)")
+
+
 def file_digest(path: Path) -> str:
     """Return the hex SHA-256 of the bytes of `path`, read in chunks.
 
@@ -147,10 +165,17 @@ def file_digest(path: Path) -> str:
         When the file cannot be read.
     """
     digest = hashlib.sha256()
+    text = path.name.lower().endswith((".csv", ".tsv"))  # binary formats hold NULs legitimately
     try:
         with path.open("rb") as handle:
+            offset = 0
             for chunk in iter(lambda: handle.read(1 << 20), b""):
                 digest.update(chunk)
+                if text and b"\x00" in chunk:
+                    at = offset + chunk.index(b"\x00")
+                    if at >= BINARY_SNIFF:  # earlier ones: the reader's "not text" message
+                        _refuse_nul(path, at)
+                offset += len(chunk)
     except OSError as exc:
         raise DataError(path, None, (), f"cannot read the file ({exc.strerror})",
                         "check that the file exists and is readable") from None

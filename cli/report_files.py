@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from .errors import UsageError
-from .files import atomic_write_bytes
+from .files import atomic_write_bytes, remove_stale_temporaries
 
 __all__ = ["write_reports"]
 
@@ -49,6 +49,7 @@ def write_reports(results: Path, formats: tuple[str, ...], *, out: Path | None =
     written = []
     try:
         folder.mkdir(parents=True, exist_ok=True)
+        remove_stale_temporaries(folder)
         for name, payload in payloads.items():
             target = folder / name
             atomic_write_bytes(target, payload)

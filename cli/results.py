@@ -9,18 +9,19 @@ from __future__ import annotations
 
 import csv
 import fnmatch
+import glob
 import io
 import json
 import os
 from datetime import datetime, timezone
 from importlib import resources
-from pathlib import Path
+from pathlib import Path, PurePath
 from typing import Any
 
 from .errors import UsageError
-from .files import temporary_file
+from .files import remove_stale_temporaries, temporary_file
 from .runner import Run
-from .spec import Spec, glob_pattern
+from .spec import Spec
 from .waves import part_names
 
 __all__ = [
@@ -148,14 +149,61 @@ def check_output_paths(spec: Spec, out_dir: Path, formats: tuple[str, ...]) -> N
         if resolved in inputs:
             raise UsageError(f"writing {target} would overwrite an input file",
                              "choose another output directory with --out or output.dir")
-        for entry in spec.data_entries:
-            if set("*?[") & set(entry):
-                pattern = glob_pattern(entry, spec.path.parent)
-                if fnmatch.fnmatch(str(resolved), pattern) or \
-                        fnmatch.fnmatch(str(target), pattern):
-                    raise UsageError(f"{target} would match the data pattern '{entry}', so a "
-                                     "later run would read the results as data",
-                                     "choose another output directory with --out or output.dir")
+    for target in [out_dir / name for name in (*FILE_NAMES.values(), "history.jsonl")]:
+        entry = reading_pattern(spec, target)
+        if entry is not None:
+            raise UsageError(f"{target} would match the data pattern '{entry}', so a "
+                             "later run would read the results as data",
+                             "choose another output directory with --out or output.dir")
+
+
+def reading_pattern(spec: Spec, target: Path) -> str | None:
+    """The `data` glob of `spec` that would read `target` on a later run, or None.
+
+    Both sides are compared as the reader finds files: relative entries below the spec's
+    folder, ``..`` and symbolic links resolved, ``*``, ``?`` and ``[...]`` within one
+    path part and ``**`` across folders (`glob.glob` with ``recursive=True``).
+    """
+    resolved = Path(os.path.realpath(target))
+    for entry in spec.data_entries:
+        parts = Path(entry).expanduser().parts
+        magic = [i for i, part in enumerate(parts) if set("*?[") & set(part)]
+        if not magic:
+            continue
+        literal = Path(*parts[:magic[0]]) if magic[0] else Path()
+        if not literal.is_absolute():
+            literal = spec.path.parent / literal
+        rest = parts[magic[0]:]
+        prefix = Path(os.path.realpath(literal))
+        if "**" in rest:  # any depth: the part after the prefix, matched across folders
+            pattern = str(Path(glob.escape(str(prefix)), *rest))
+            if any(fnmatch.fnmatchcase(str(resolved), p)  # "**/" also matches no folder
+                   for p in (pattern, pattern.replace("**/", ""))):
+                return entry
+        elif PurePath(resolved).match(str(Path(glob.escape(str(prefix)), *rest))):
+            return entry
+    return None
+
+
+def check_writable(out_dir: Path) -> None:
+    """Refuse an output folder that cannot be created or written, as a run would find out
+    only after fitting (`check` asks the same question first). Nothing is left behind.
+
+    Raises
+    ------
+    UsageError
+        With the reason and how to fix it.
+    """
+    existing = out_dir
+    while not existing.exists() and existing != existing.parent:
+        existing = existing.parent
+    if not existing.is_dir():
+        raise UsageError(f"the output directory {out_dir} cannot be created: {existing} is a "
+                         "file", "choose a directory with --out or output.dir")
+    if not os.access(existing, os.W_OK | os.X_OK):
+        raise UsageError(f"cannot write the results into {out_dir} (permission denied on "
+                         f"{existing})", "choose a writable directory with --out or "
+                         "output.dir")
 
 
 def resolved_spec(spec: Spec, *, out_dir: Path | None = None,
@@ -304,7 +352,26 @@ def _cell(value: Any) -> str:
         return "true" if value else "false"
     if isinstance(value, float) and value == 0:
         return "0.0"  # never "-0.0"
+    if isinstance(value, str):
+        return _inert(value)
     return str(value)
+
+
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+"""First characters that make a spreadsheet run a cell as a formula."""
+
+
+def _inert(text: str) -> str:
+    """`text` as a spreadsheet shows it but never runs it: a text cell that starts like a
+    formula gets a leading apostrophe (common practice for CSV exports); a number such as
+    -3.5 is left alone."""
+    if not text.startswith(_FORMULA_START):
+        return text
+    try:
+        float(text)
+    except ValueError:
+        return "'" + text
+    return text
 
 
 def strata_table(run: Run) -> str:
@@ -324,7 +391,7 @@ def strata_table(run: Run) -> str:
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
     header = strata_csv_columns(run)
-    writer.writerow(header)
+    writer.writerow([_inert(h) for h in header])
     at = STRATA_COLUMNS.index("stratum") + 1
     names = header[at:at + len(run.dataset.stratum_parts and part_names(run.spec, run.dataset))]
     mark = {"blinded": True} if run.blinded is not None else {}
@@ -430,6 +497,7 @@ def write_outputs(run: Run, out_dir: Path, formats: tuple[str, ...], *,
     temps: list[tuple[Path, Path]] = []
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
+        remove_stale_temporaries(out_dir)  # left by a run that was killed while writing
         for fmt in formats:
             fd, tmp = temporary_file(out_dir)
             temps.append((tmp, out_dir / FILE_NAMES[fmt]))
@@ -439,11 +507,13 @@ def write_outputs(run: Run, out_dir: Path, formats: tuple[str, ...], *,
                 os.fsync(handle.fileno())
         for tmp, target in temps:
             os.replace(tmp, target)
-    except OSError as exc:
+    except BaseException as exc:  # also Ctrl-C and SIGTERM: no temporary file is left
         for tmp, _ in temps:
             tmp.unlink(missing_ok=True)
         if made_dir and out_dir.is_dir() and not any(out_dir.iterdir()):
             out_dir.rmdir()
+        if not isinstance(exc, OSError):
+            raise
         raise UsageError(f"cannot write the results into {out_dir} ({exc.strerror})",
                          "choose a writable directory with --out or output.dir") from None
     return [target for _, target in temps]

@@ -229,8 +229,13 @@ def read_results(path: Path) -> ResultsFile:
     """
     import jsonschema
 
+    from .files import special_file
     from .results import load_schema
 
+    kind = special_file(path)
+    if kind is not None:
+        raise UsageError(f"{path} is not a regular file but {kind}",
+                         "name a results.json written by 'strativ run'")
     try:
         document = json.loads(path.read_text(encoding="utf-8"))
     except OSError as exc:

@@ -382,9 +382,8 @@ def _fit_outcome(spec: Spec, data: GroupedData, name: str,
                  probabilities: dict[Any, float] | None, progress: Any = None) -> OutcomeResult:
     """`fit_all` on the rows that have outcome `name`; the core's refusals become errors
     located in the spec or the data."""
+    require_outcome_values(data, name)
     missing = data.missing(name)
-    if missing == data.n_rows:
-        raise DataError(None, name, (), "the outcome is missing in every row")
     with _floating_point_guard(name, data.largest(name)):
         cells = _cells(data, name, spec=spec)
         present = set(cells.labels)
@@ -416,6 +415,24 @@ def _plan(spec: Spec, name: str, comparison: Comparison) -> Plan:
                 target_effect=dict(spec.target_effects).get(name))
 
 
+def require_outcome_values(data: GroupedData, name: str) -> None:
+    """Refuse outcome `name` when no kept row has a value (`check` and `run` alike).
+
+    Raises
+    ------
+    DataError
+        Naming the column and the rows read, with how to fix it.
+    """
+    if data.missing(name) < data.n_rows:
+        return
+    files = ", ".join(f.path.name for f in data.files)
+    raise DataError(None, name, (), f"the outcome has no value in any of the {data.n_rows:,} "
+                    f"kept rows of {files}",
+                    "check that this column holds the outcome as numbers (a blank cell is "
+                    "missing) and that the export filled it in; or remove it from "
+                    "columns.outcome")
+
+
 def check_with_core(spec: Spec, data: GroupedData,
                     probabilities: dict[Any, float] | None) -> list[str]:
     """Let the core apply every rule `strativ run` meets, and return the design warnings.
@@ -443,6 +460,8 @@ def check_with_core(spec: Spec, data: GroupedData,
     SpecError, DataError
         Where the core refuses the spec or the data, located as in `run_spec`.
     """
+    for name in data.outcomes:  # an empty outcome is named before any design rule
+        require_outcome_values(data, name)
     name = data.outcomes[0]
     result = _fit_outcome(spec, data, name, probabilities)
     return offer_count_warnings(name, result.comparison)

@@ -24,6 +24,7 @@ from strativ.estimators.options import (
 )
 
 from .errors import SpecError
+from .files import special_file
 from .spec_planning import PLANNING_KEYS, planning_options
 from .spec_reading import READING_KEYS, ReadOptions, read_options
 from .spec_sensitivity import (
@@ -366,6 +367,10 @@ def load_spec(path: Path | str) -> Spec:
         does not exist.
     """
     path = Path(path).expanduser().resolve()
+    kind = special_file(path)
+    if kind is not None:  # opening a pipe or a device would wait or read forever
+        raise SpecError(path, None, None, f"the spec is not a regular file but {kind}",
+                        "name a YAML file saved on disk")
     try:
         text = path.read_text(encoding="utf-8-sig")
     except FileNotFoundError:
@@ -470,7 +475,7 @@ def _data_files(check: _Checker, value: Any, base: Path,
         if pattern:
             matches = sorted(Path(m) for m in glob.glob(glob_pattern(entry, base),
                                                         recursive=True))
-            matches = [m for m in matches if m.is_file()]
+            matches = [m for m in matches if not m.is_dir()]
             if not matches:
                 raise check.error(keys, f"the pattern '{entry}' matches no file "
                                   f"(looked in {target.parent})",
@@ -488,6 +493,10 @@ def _data_files(check: _Checker, value: Any, base: Path,
                                   f"name the files, or a glob such as '{entry}/*.csv'")
             matches = [target]
         for match in matches:
+            kind = special_file(match)
+            if kind is not None:  # a pipe waits forever, a device never ends
+                raise check.error(keys, f"'{match.name}' is not a regular file but {kind}",
+                                  "name data files saved on disk")
             resolved = match.resolve()
             if not resolved.name.lower().endswith(DATA_SUFFIXES):
                 hint = f"the pattern '{entry}' matched it; narrow the pattern, for example " \

@@ -40,9 +40,15 @@ def line_of(lines: Mapping[KeyPath, int], keys: KeyPath) -> int | None:
 
 
 def compose_with_lines(text: str, path: Path) -> tuple[Any, dict[KeyPath, int]]:
-    """Parse YAML text into Python data plus the line of every key and list item."""
-    loader = yaml.SafeLoader(text)
+    """Parse YAML text into Python data plus the line of every key and list item.
+
+    Every failure is a `SpecError` with its line where one is known: characters YAML does
+    not allow (control characters), invalid YAML, nesting too deep to read, and a list or
+    mapping repeated through an alias (``*name``), which is refused rather than expanded (a
+    few nested aliases can stand for billions of values)."""
+    loader = None
     try:
+        loader = yaml.SafeLoader(text)
         node = loader.get_single_node()
         if node is None:
             raise SpecError(path, None, None, "the spec is empty",
@@ -55,10 +61,22 @@ def compose_with_lines(text: str, path: Path) -> tuple[Any, dict[KeyPath, int]]:
         problem = exc.problem or exc.context or "invalid YAML"
         raise SpecError(path, mark.line + 1 if mark else None, None,
                         f"not valid YAML: {problem}", _yaml_hint(exc, problem)) from None
+    except yaml.reader.ReaderError as exc:
+        at = exc.position if isinstance(exc.position, int) else 0
+        line = text[:at].count("\n") + 1
+        column = at - text.rfind("\n", 0, at)
+        code = exc.character if isinstance(exc.character, int) else ord(exc.character or " ")
+        raise SpecError(path, line, None, f"the spec holds a character YAML does not allow "
+                        f"(0x{code:02x} at column {column})",
+                        "remove control characters; a spec is plain text") from None
     except yaml.YAMLError as exc:
         raise SpecError(path, None, None, f"not valid YAML: {exc}") from None
+    except RecursionError:
+        raise SpecError(path, None, None, "the spec is nested too deeply to read",
+                        "a spec needs at most a few levels of lists and mappings") from None
     finally:
-        loader.dispose()
+        if loader is not None:
+            loader.dispose()
     return data, lines
 
 
@@ -75,9 +93,14 @@ def _yaml_hint(exc: yaml.MarkedYAMLError, problem: str) -> str:
 
 def _index(loader: yaml.SafeLoader, node: yaml.Node, keys: KeyPath,
            lines: dict[KeyPath, int], path: Path, seen_nodes: set[int]) -> None:
-    # An alias repeats a node; walking it again would take exponential time on nested
-    # aliases ("billion laughs"), and its lines are those of the anchor anyway.
+    # An alias repeats a node; a repeated list or mapping is refused: nested aliases can stand
+    # for billions of values ("billion laughs") that a message quoting one would spell out.
     if id(node) in seen_nodes:
+        if isinstance(node, (yaml.MappingNode, yaml.SequenceNode)):
+            raise SpecError(path, node.start_mark.line + 1, dotted(keys),
+                            "the spec repeats a list or mapping through an alias (*name)",
+                            "write the values out where they are used; a spec does not use "
+                            "YAML anchors and aliases for lists and mappings")
         return
     seen_nodes.add(id(node))
     if isinstance(node, yaml.MappingNode):
