@@ -128,6 +128,8 @@ def _row_text(row: int, line: int) -> str:
     return f"row {row} (line {line})" if line else f"row {row}"
 
 
+_GROUPED = re.compile(r"[-+]?\d{1,3}(?:,\d{3})+\.\d+|[-+]?\d{1,3}(?:\.\d{3})+,\d+")
+"""A number with thousands separators and decimals: 12,345.000 or 12.345,000."""
 BINARY_SNIFF = 65536
 """Bytes at the start of a text file in which a NUL marks the file as binary (`tables`); a
 NUL further on is refused by `file_digest` with its line."""
@@ -313,13 +315,21 @@ def _parse_file(path: Path, table: Table, spec: Spec) -> dict[str, Parsed]:
             first = table.columns[name][int(parsed.invalid[0])]
             comma = isinstance(first, str) and _DECIMAL_COMMA.fullmatch(first.strip()) \
                 and spec.reading.decimal == "."
+            grouped = isinstance(first, str) and _GROUPED.fullmatch(first.strip())
+            if grouped:
+                plain = first.strip().replace("," if "," in first else ".", "", 10 ** 6) \
+                    if first.count(",") and first.count(".") else first.strip()
+                hint = (f"these numbers carry thousands separators ({first.strip()!r}): "
+                        f"export them without grouping ({plain!r})")
+            elif comma:
+                hint = ("write numbers with a decimal point and no separators "
+                        "(12.5 and 1000, not 12,5 or 1,000), or for a file written "
+                        "with decimal commas add  reading: {delimiter: ';', decimal: ','}"
+                        "  to the spec")
+            else:
+                hint = "fix or blank out these values (blank = missing)"
             raise _bad_values(path, name, table, parsed, table.columns[name],
-                              f"the {role} column must be numeric",
-                              "write numbers with a decimal point and no separators "
-                              "(12.5 and 1000, not 12,5 or 1,000), or for a file written "
-                              "with decimal commas add  reading: {delimiter: ';', decimal: ','}"
-                              "  to the spec" if comma
-                              else "fix or blank out these values (blank = missing)")
+                              f"the {role} column must be numeric", hint)
         out[name] = parsed
     for name in cols.outcome:
         parsed = out[name]

@@ -145,6 +145,9 @@ def _read_csv(path: Path, wanted: Sequence[str] | None, delimiter: str) -> Table
     fast = _read_plain_csv(raw, text, wanted, delimiter)
     if fast is not None:
         return fast
+    # a long note or free-text field (even one the spec does not use) is data, not an error:
+    # the reader's default limit of 128 KiB per field would call it a quoting problem
+    csv.field_size_limit(max(csv.field_size_limit(), len(text) + 1))
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter)
     header: list[str] | None = None
     header_line = ""
@@ -196,6 +199,10 @@ def _solid(delimiter: str) -> np.ndarray:
 
 
 
+_FAST_FIELD_LIMIT = 131072
+"""Longest line the plain fast path reads; longer lines go to the csv reader."""
+
+
 def _read_plain_csv(raw: bytes, text: str, wanted: Sequence[str] | None,
                     delimiter: str = ",") -> Table | None:
     """Read a CSV (or TSV) without quotes by splitting lines and delimiters, or None to use the
@@ -219,7 +226,7 @@ def _read_plain_csv(raw: bytes, text: str, wanted: Sequence[str] | None,
     breaks = np.flatnonzero(codes == ord("\n"))
     starts = np.concatenate(([0], breaks + 1))
     ends = np.concatenate((breaks, [codes.size]))
-    if len(lines) != starts.size or (ends - starts).max() >= csv.field_size_limit():
+    if len(lines) != starts.size or (ends - starts).max() >= _FAST_FIELD_LIMIT:
         return None
     commas = np.flatnonzero(codes == ord(delimiter))
     n_commas = np.searchsorted(commas, ends) - np.searchsorted(commas, starts)
