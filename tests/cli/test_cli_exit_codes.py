@@ -1,5 +1,6 @@
 """The exit codes the README documents that no other test reaches: 1 (an internal error,
-without a traceback) and 130 (interrupted)."""
+without a traceback), 130 (interrupted) and 143 (terminated; its subprocess tests are in
+test_cli_faults.py)."""
 
 from __future__ import annotations
 
@@ -39,5 +40,5 @@ def test_ctrl_c_exits_130_with_one_line(study: Study, invoke,
 def test_the_readme_lists_every_exit_code() -> None:
     readme = (REPO / "README.md").read_text(encoding="utf-8")
     block = readme[readme.index("**Exit codes:**"):].split("\n\n")[0]
-    # by construction: the codes app.py and gates.py define
-    assert re.findall(r"`(\d+)`", block) == ["0", "1", "2", "3", "4", "130"]
+    # by construction: the codes app.py, entry.py and gates.py define
+    assert re.findall(r"`(\d+)`", block) == ["0", "1", "2", "3", "4", "130", "143"]
