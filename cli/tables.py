@@ -134,7 +134,11 @@ def _read_csv(path: Path, wanted: Sequence[str] | None, delimiter: str) -> Table
         hint = "if it is an Excel workbook, name it to end in .xlsx; otherwise save it as " \
             f"{kind} first" if raw.startswith(b"PK\x03\x04") else \
             f"if it is a spreadsheet, save it as {kind} first"
-        raise DataError(path, None, (), "the file is not text (it holds binary data)", hint)
+        at = raw.index(b"\x00")
+        line = raw[:at].count(b"\n") + 1
+        raise DataError(path, None, (line - 1,) if line > 1 else (),
+                        f"the file is not text (it holds binary data: a NUL byte on line "
+                        f"{line})", hint)
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:

@@ -239,7 +239,8 @@ CASES: tuple[Case, ...] = (
     Case("unknown gate", lambda r: (_files(r), run("--fail-on", "sunny"))[1], 2, "sunny"),
     # data bytes
     Case("NUL past the binary sniff", _data(_nul_late()), 3, "a NUL byte (\\x00) at line"),
-    Case("NUL at the start", _data(b"s,z,d,y\n\x00\x01\x02\n"), 3, "not text"),
+    Case("NUL at the start", _data(b"s,z,d,y\n\x00\x01\x02\n"), 3,
+         "not text (it holds binary data: a NUL byte on line 2)"),
     Case("Latin-1 text", _data(study_csv().encode() + b"s1,1,1,caf\xe9\n"), 3, "not UTF-8"),
     Case("UTF-16 text", _data(study_csv().encode("utf-16")), 3, "UTF-16"),
     Case("gzip named .csv", _data(gzip.compress(study_csv().encode())), 3,
