@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import re
 from importlib import import_module
-from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from .errors import CliError, DataError, SpecError, UsageError
@@ -62,6 +61,7 @@ def _package_version() -> str:
         installed, the version in the tree's pyproject.toml; "unknown" when neither exists.
     """
     from importlib.metadata import PackageNotFoundError, version
+    from pathlib import Path
 
     try:
         return version("strativ")

@@ -32,8 +32,8 @@ from rich.text import Text
 from typer.core import TyperCommand
 
 from .console import make_console, render_error
-from .entry import EXIT_INTERRUPTED, EXIT_TERMINATED
-from .errors import EXIT_INTERNAL, CliError, Terminated, UsageError
+from .entry import EXIT_INTERRUPTED
+from .errors import EXIT_INTERNAL, CliError, UsageError
 
 if TYPE_CHECKING:
     from rich.console import Console
@@ -95,9 +95,7 @@ def _boundary() -> Iterator[Console]:
     except KeyboardInterrupt:
         err.print("interrupted")
         raise typer.Exit(EXIT_INTERRUPTED) from None
-    except Terminated:
-        err.print("terminated")
-        raise typer.Exit(EXIT_TERMINATED) from None
+
     except Exception as exc:  # the last gate: never show a traceback
         err.print(Text.assemble(
             Text("internal error: ", style="bold red"),
@@ -223,8 +221,8 @@ def check(
     """
     with _boundary() as err:
         from .grouped import group_data
+        from .output_guard import check_output_paths, check_writable
         from .render import render_check, render_warnings
-        from .results import check_output_paths, check_writable
         from .runner import (
             check_with_core,
             data_warnings,
@@ -369,7 +367,7 @@ def lock(spec: SpecArg) -> None:
     Example:  strativ lock specs/trial.yaml
     """
     with _boundary() as err:
-        from .loading import _distinct_digests
+        from .fingerprints import distinct_digests
         from .plan_lock import write_lock
         from .results import tool_version
         from .spec import load_spec
@@ -378,7 +376,7 @@ def lock(spec: SpecArg) -> None:
         if loaded.data_kind != "rows":
             raise UsageError("a plan is locked on the unit rows' files, and this spec reads "
                              "a moment table", "lock the spec that reads the rows")
-        digests = _distinct_digests(loaded)
+        digests = distinct_digests(loaded)
         inputs = [(p, p.stat().st_size, d) for p, d in zip(loaded.data, digests, strict=True)]
         target = write_lock(loaded, inputs, tool_version())
         err.print(Text.assemble("locked the plan of ", Text(loaded.path.name), " in ",
@@ -428,9 +426,7 @@ def main() -> None:
         if isinstance(exc, KeyboardInterrupt):
             sys.stderr.write("interrupted\n")
             sys.exit(EXIT_INTERRUPTED)
-        if isinstance(exc, Terminated):
-            sys.stderr.write("terminated\n")
-            sys.exit(EXIT_TERMINATED)
+
         sys.stderr.write(f"internal error: {type(exc).__name__}: {exc}\n"
                          "  This is a bug in strativ; please report it.\n")
         sys.exit(EXIT_INTERNAL)

@@ -1,10 +1,12 @@
 """The `strativ` console entry point: signals are handled before anything else is imported.
 
-Importing the command line (typer, rich) takes a moment; a Ctrl-C in that moment would
-otherwise end in a Python traceback. Until the commands are ready, SIGINT prints one line and
-exits 130 and SIGTERM exits 143, both without a traceback. From then on SIGINT is Python's
-`KeyboardInterrupt` and SIGTERM raises `Terminated`, which the command boundary turns into
-the same line and exit code after the open temporary files are removed.
+`timeout`, make and schedulers stop a run with SIGTERM, a user with Ctrl-C (SIGINT), at any
+moment: while the command line is imported, during a fit in compiled code, or while the
+result files are written. The handler installed first thing does the same at every moment:
+it removes the temporary files this process has open (the result files are only ever
+renamed into place whole, so the previous results stay), prints one line and exits 130
+(SIGINT) or 143 (SIGTERM). It acts at once, so a fit in compiled code cannot delay or
+swallow it.
 """
 
 from __future__ import annotations
@@ -21,25 +23,20 @@ EXIT_TERMINATED = 143
 """Exit code after SIGTERM (what `timeout`, make and schedulers send): 128 + 15."""
 
 
-def _quit_now(signum: int, frame: Any) -> None:  # noqa: ARG001 - signal handler signature
-    """Before the commands are ready nothing is open: say so in one line and leave."""
+def _stop(signum: int, frame: Any) -> None:  # noqa: ARG001 - signal handler signature
+    """Remove this process's temporary files, say why in one line, and leave."""
+    from .files import remove_own_temporaries
+
+    remove_own_temporaries()
     interrupted = signum == signal.SIGINT
     os.write(2, b"interrupted\n" if interrupted else b"terminated\n")
     os._exit(EXIT_INTERRUPTED if interrupted else EXIT_TERMINATED)
 
 
-def _terminate(signum: int, frame: Any) -> None:  # noqa: ARG001 - signal handler signature
-    from .errors import Terminated
-
-    raise Terminated()
-
-
 def main() -> None:
     """Run the `strativ` command with the signal handling described above."""
-    signal.signal(signal.SIGINT, _quit_now)
-    signal.signal(signal.SIGTERM, _quit_now)
+    signal.signal(signal.SIGINT, _stop)
+    signal.signal(signal.SIGTERM, _stop)
     from .app import main as run
 
-    signal.signal(signal.SIGINT, signal.default_int_handler)
-    signal.signal(signal.SIGTERM, _terminate)
     run()

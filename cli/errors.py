@@ -8,8 +8,11 @@ stderr and an exit code at one boundary. Exit codes: 0 success, 1 unexpected int
 from __future__ import annotations
 
 import re
-from collections.abc import Sequence
-from pathlib import Path
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:  # the entry point imports this module first: it stays light
+    from collections.abc import Sequence
+    from pathlib import Path
 
 __all__ = [
     "EXIT_OK",
@@ -20,7 +23,6 @@ __all__ = [
     "SpecError",
     "DataError",
     "UsageError",
-    "Terminated",
     "safe_text",
 ]
 
@@ -71,7 +73,7 @@ def safe_text(text: str, limit: int | None = None) -> str:
 def _shown_path(path: Path) -> str:
     """Return `path` relative to the working directory when it lies below it."""
     try:
-        return str(path.resolve().relative_to(Path.cwd().resolve()))
+        return str(path.resolve().relative_to(path.cwd().resolve()))
     except (ValueError, OSError):
         return str(path)
 
@@ -198,8 +200,3 @@ class UsageError(CliError):
     """
 
     exit_code = EXIT_USAGE
-
-
-class Terminated(BaseException):
-    """SIGTERM arrived (`timeout`, make or a scheduler stopping the run): like Ctrl-C, it
-    unwinds the command so that open temporary files are removed, then exits 143."""

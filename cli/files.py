@@ -14,7 +14,11 @@ import secrets
 import stat
 from pathlib import Path
 
-__all__ = ["atomic_write_bytes", "remove_stale_temporaries", "special_file", "temporary_file"]
+__all__ = ["atomic_write_bytes", "forget_temporary", "remove_own_temporaries",
+           "remove_stale_temporaries", "special_file", "temporary_file"]
+
+_OWN: set[str] = set()
+"""Temporary files this process created and has not yet renamed or removed."""
 
 _PREFIX = ".strativ-"
 _SUFFIX = ".tmp"
@@ -50,9 +54,11 @@ def temporary_file(directory: Path) -> tuple[int, Path]:
     for _ in range(_TRIES):
         candidate = directory / f"{_PREFIX}{os.getpid()}-{secrets.token_hex(8)}{_SUFFIX}"
         try:
-            return os.open(candidate, _FLAGS, 0o666), candidate
+            fd = os.open(candidate, _FLAGS, 0o666)
         except FileExistsError:
             continue
+        _OWN.add(str(candidate))
+        return fd, candidate
     raise FileExistsError(errno.EEXIST, "no free temporary file name", str(directory))
 
 
@@ -81,6 +87,8 @@ def atomic_write_bytes(target: Path, payload: bytes) -> None:
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
+    finally:
+        forget_temporary(tmp)
 
 
 def special_file(path: Path) -> str | None:
@@ -155,3 +163,19 @@ def remove_stale_temporaries(directory: Path) -> list[Path]:
         except OSError:
             continue
     return removed
+
+
+def forget_temporary(path: Path) -> None:
+    """`path` was renamed into place or removed: no longer this process's to clean up."""
+    _OWN.discard(str(path))
+
+
+def remove_own_temporaries() -> None:
+    """Remove every temporary file this process still has (a signal is ending it). Safe to
+    call from a signal handler: plain system calls, errors ignored."""
+    for name in list(_OWN):
+        try:
+            os.unlink(name)
+        except OSError:
+            pass
+        _OWN.discard(name)

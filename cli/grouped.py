@@ -24,13 +24,11 @@ import pandas as pd
 from strativ.estimators import OUTCOME_LIMIT, CellTable, cells_from_moments, group_query
 
 from .errors import DataError
+from .fingerprints import InputFile, distinct_digests, file_fingerprint
 from .loading import (
     Dataset,
-    InputFile,
-    _distinct_digests,
     _incomplete_columns,
     _integer_labels,
-    file_fingerprint,
     load_data,
     stratum_labels,
 )
@@ -208,7 +206,7 @@ def group_data(spec: Spec) -> GroupedData:
         from .moment_table import read_moment_table
 
         return read_moment_table(spec)
-    digests = _distinct_digests(spec)
+    digests = distinct_digests(spec)
     try:
         if spec.reading.engine == "spark":
             from .spark_units import spark_group_frame

@@ -39,8 +39,9 @@ from strativ.estimators import group_query
 
 from .errors import DataError
 from .files import atomic_write_bytes
+from .fingerprints import file_fingerprint
 from .grouped import GroupedData
-from .loading import STRATUM_JOIN, _integer_labels, _label_parts, file_fingerprint
+from .loading import STRATUM_JOIN, _integer_labels, _label_parts
 from .spec import Spec
 from .units_sql import Roles, roles_of
 from .values import parse_binary, parse_label, parse_number

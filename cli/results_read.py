@@ -35,7 +35,7 @@ from strativ.estimators.results import (
 from strativ.estimators.sensitivity import DirectEffectSensitivity
 
 from .errors import UsageError
-from .loading import InputFile
+from .fingerprints import InputFile
 from .multiplicity import OutcomeFamily
 from .plan_lock import PlanCheck
 from .runner import AttritionCell

@@ -35,16 +35,17 @@ __all__ = ["run_command"]
 def _unchanged(spec: Spec, out_dir: Path, formats: tuple[str, ...],
                history: History, blinded: int | None) -> dict | None:
     """The last record when a rerun could change nothing, else None."""
+    from .fingerprints import distinct_digests
     from .history import state_of
-    from .loading import _distinct_digests
-    from .results import output_paths, resolved_spec, tool_version
+    from .output_guard import output_paths
+    from .results import resolved_spec, tool_version
 
     last = history.last
     if last is None or history.damaged:
         return None
     if not all(p.is_file() for p in output_paths(out_dir, formats)):
         return None
-    digests = _distinct_digests(spec)
+    digests = distinct_digests(spec)
     now = state_of(resolved_spec(spec, out_dir=out_dir, formats=formats),
                    [(p.name, d) for p, d in zip(spec.data, digests, strict=True)],
                    tool_version(), blinded=blinded)
@@ -114,15 +115,10 @@ def run_command(spec_path: Path, *, out: Path | None, quiet: bool,
     from .console import draw_progress
     from .grouped import group_data
     from .history import append_record, read_history, run_record
+    from .output_guard import check_output_paths, remove_stale_outputs
     from .plan_lock import check_plan
     from .render import render_run, render_warnings
-    from .results import (
-        check_output_paths,
-        remove_stale_outputs,
-        results_document,
-        tool_version,
-        write_outputs,
-    )
+    from .results import results_document, tool_version, write_outputs
     from .runner import run_spec
     from .spec import load_spec
 

@@ -27,7 +27,7 @@ from strativ.estimators.options import (
 )
 
 from .errors import UsageError
-from .files import temporary_file
+from .files import forget_temporary, temporary_file
 from .starter_roles import (
     ColumnProfile,
     RoleChoice,
@@ -307,3 +307,4 @@ def write_new_file(path: Path, text: str) -> None:
         raise UsageError(f"cannot write {path} ({exc.strerror})") from None
     finally:
         os.unlink(tmp)
+        forget_temporary(tmp)

@@ -63,13 +63,19 @@ def _signal_after(args: list[str], signum: int, delay: float) -> tuple[int, str]
     return process.returncode, out + err
 
 
-@pytest.mark.parametrize("delay", [0.05, 0.3])
+@pytest.mark.parametrize("delay", [0.05, 0.1, 0.3, 0.6])
 def test_ctrl_c_at_start_up_is_one_line(tmp_path, delay) -> None:
     code, output = _signal_after(["run", str(_spec(tmp_path)), "--out", str(tmp_path / "o")],
                                  signal.SIGINT, delay)
-    # common practice, no source: 128 + SIGINT
+    if delay < 0.2 and (code == -signal.SIGINT or "init_import_site" in output):
+        # on a loaded machine the signal can still come while the interpreter itself starts,
+        # before any strativ code runs (the system's default ends it, or Python reports it
+        # failed to start): outside the command's reach, and said so in the README
+        return
+    assert "Traceback" not in output
+    # common practice, no source: 128 + SIGINT, one line
     assert code == 130, output
-    assert output.strip() == "interrupted" and "Traceback" not in output
+    assert output.strip() == "interrupted"
     assert not (tmp_path / "o").exists()
 
 
