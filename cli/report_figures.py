@@ -63,8 +63,17 @@ def _finish(figure: Any, kind: str) -> str | bytes:
     return text[text.index("<svg"):]  # inline: no XML prolog or doctype
 
 
-def _labels(rows: list[Any]) -> list[str]:
-    return [f"{r.label}  ({100 * r.offer_share:.0f}% offered)" for r in rows]
+def _frame(axes: Any, rows: list[Any]) -> None:
+    """The house style of side-by-side panels: a light vertical grid behind, no top or right
+    frame, one stratum per row labelled with its offer share on the left."""
+    for axis in axes:
+        axis.grid(axis="x", color=COLOURS["grid"], linewidth=0.8)
+        axis.set_axisbelow(True)
+        for side in ("top", "right"):
+            axis.spines[side].set_visible(False)
+    axes[0].set_yticks(range(len(rows)),
+                       [f"{r.label}  ({100 * r.offer_share:.0f}% offered)" for r in rows])
+    axes[0].set_ylim(-0.7, len(rows) - 0.3)
 
 
 def weight_figure(report: OutcomeReport, kind: str = "svg") -> str | bytes:
@@ -118,13 +127,8 @@ def weight_figure(report: OutcomeReport, kind: str = "svg") -> str | bytes:
         axis.set_title(f"marker area: {title}\n(dashed: estimate {value.replace('-', '−')})"
                        if value else f"marker area: {title}", fontsize=9,
                        color=COLOURS[colour])
-        axis.grid(axis="x", color=COLOURS["grid"], linewidth=0.8)
-        axis.set_axisbelow(True)
-        for side in ("top", "right"):
-            axis.spines[side].set_visible(False)
         axis.set_xlabel(f"effect on {report.outcome}, {level:.0%} interval")
-    axes[0].set_yticks(range(len(rows)), _labels(rows))
-    axes[0].set_ylim(-0.7, len(rows) - 0.3)
+    _frame(axes, rows)
     return _finish(figure, kind)
 
 
@@ -154,10 +158,5 @@ def first_stage_figure(report: OutcomeReport, kind: str = "svg") -> str | bytes:
         axis.scatter(values, range(len(rows)), s=28, color=COLOURS[colour], zorder=2)
         axis.axvline(0, color=COLOURS["ink"], linewidth=0.8)
         axis.set_title(title, fontsize=9, color=COLOURS["ink"])
-        axis.grid(axis="x", color=COLOURS["grid"], linewidth=0.8)
-        axis.set_axisbelow(True)
-        for side in ("top", "right"):
-            axis.spines[side].set_visible(False)
-    axes[0].set_yticks(range(len(rows)), _labels(rows))
-    axes[0].set_ylim(-0.7, len(rows) - 0.3)
+    _frame(axes, rows)
     return _finish(figure, kind)
