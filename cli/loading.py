@@ -23,7 +23,8 @@ from strativ.estimators import OUTCOME_LIMIT
 from .counting import count
 from .errors import DataError
 from .fingerprints import InputFile, distinct_digests, file_fingerprint
-from .spec import Spec, suggest
+from .spec import Spec
+from .suggest import suggest
 from .tables import OTHER_DELIMITERS, Table, read_table
 from .values import (
     Parsed,

@@ -54,7 +54,8 @@ from .outcome_checks import (
     randomization,
     randomization_family_test,
 )
-from .spec import Spec, suggest
+from .spec import Spec
+from .suggest import suggest
 from .wave_fits import WaveSummary, wave_summary
 from .waves import splits_strata
 

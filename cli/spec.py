@@ -7,8 +7,6 @@ found and the nearest valid key ("did you mean").
 
 from __future__ import annotations
 
-import difflib
-import glob
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -25,6 +23,7 @@ from strativ.estimators.options import (
 
 from .errors import SpecError
 from .files import special_file
+from .spec_files import data_files, glob_pattern
 from .spec_planning import PLANNING_KEYS, planning_options
 from .spec_reading import READING_KEYS, ReadOptions, read_options
 from .spec_sensitivity import (
@@ -33,14 +32,13 @@ from .spec_sensitivity import (
     direct_effect_range,
     randomization_options,
 )
-from .tables import DATA_SUFFIXES, FORMATS_TEXT
+from .suggest import suggest
 from .waves import WAVE_KEYS, wave_options
 from .yamlmarks import KeyPath, compose_with_lines, dotted, line_of
 
 __all__ = [
     "DEFAULT_FORMATS",
     "FORMATS",
-    "DATA_SUFFIXES",
     "Columns",
     "OfferProbability",
     "Spec",
@@ -72,31 +70,6 @@ _SECTIONS: dict[str, tuple[str, ...] | None] = {
     "planning": PLANNING_KEYS,
 }
 _REQUIRED_COLUMNS = ("outcome", "take_up", "offer", "stratum")
-_GLOB_CHARS = set("*?[")
-
-
-def suggest(word: str, choices: list[str] | tuple[str, ...]) -> str | None:
-    """Return a "did you mean" phrase for the choice nearest to `word`, or None.
-
-    Parameters
-    ----------
-    word : str
-        What the user wrote.
-    choices : sequence of str
-        The valid names.
-
-    Returns
-    -------
-    str or None
-        ``"did you mean 'x'?"`` (or two names) when a close match exists.
-    """
-    lowered = {c.lower(): c for c in choices}
-    if word.lower() in lowered and lowered[word.lower()] != word:
-        return f"did you mean '{lowered[word.lower()]}'?"
-    close = difflib.get_close_matches(word, list(choices), n=2, cutoff=0.6)
-    if not close:
-        return None
-    return "did you mean " + " or ".join(f"'{c}'" for c in close) + "?"
 
 
 @dataclass(frozen=True, slots=True)
@@ -396,7 +369,7 @@ def load_spec(path: Path | str) -> Spec:
                               "a minimal spec needs 'data' and 'columns' "
                               "(outcome, take_up, offer, stratum)")
     title = path.stem if top.get("title") is None else check.name(top["title"], ("title",), "text")
-    data_entries, data = _data_files(check, top[kind], path.parent, kind)
+    data_entries, data = data_files(check, top[kind], path.parent, kind)
     columns = _columns(check, top["columns"])
     design = check.mapping(top.get("design"), ("design",), _SECTIONS["design"])
     offer_probability = _offer_probability(check, design.get("offer_probability"), columns)
@@ -461,75 +434,6 @@ def load_spec(path: Path | str) -> Spec:
         target_effects=targets,
         lines=dict(lines),
     )
-
-
-def _data_files(check: _Checker, value: Any, base: Path,
-                key: str = "data") -> tuple[tuple[str, ...], tuple[Path, ...]]:
-    entries = check.names(value, (key,), "a data file, a list of files or a glob")
-    found: list[Path] = []
-    for i, entry in enumerate(entries):
-        keys = (key, i) if isinstance(value, list) else (key,)
-        target = Path(entry).expanduser()
-        target = target if target.is_absolute() else base / target
-        pattern = bool(_GLOB_CHARS & set(entry)) and not target.is_file()  # "a[1].csv" is a file
-        if pattern:
-            matches = sorted(Path(m) for m in glob.glob(glob_pattern(entry, base),
-                                                        recursive=True))
-            matches = [m for m in matches if not m.is_dir()]
-            if not matches:
-                raise check.error(keys, f"the pattern '{entry}' matches no file "
-                                  f"(looked in {target.parent})",
-                                  "paths are relative to the spec file's directory")
-        else:
-            if not target.exists():
-                siblings = [p.name for p in target.parent.iterdir()] \
-                    if target.parent.is_dir() else []
-                hint = suggest(target.name, siblings) or \
-                    "paths are relative to the spec file's directory"
-                raise check.error(keys, f"data file '{entry}' does not exist "
-                                  f"(looked for {target})", hint)
-            if target.is_dir():
-                raise check.error(keys, f"'{entry}' is a directory",
-                                  f"name the files, or a glob such as '{entry}/*.csv'")
-            matches = [target]
-        for match in matches:
-            kind = special_file(match)
-            if kind is not None:  # a pipe waits forever, a device never ends
-                raise check.error(keys, f"'{match.name}' is not a regular file but {kind}",
-                                  "name data files saved on disk")
-            resolved = match.resolve()
-            if not resolved.name.lower().endswith(DATA_SUFFIXES):
-                hint = f"the pattern '{entry}' matched it; narrow the pattern, for example " \
-                    "to end in .csv" if pattern else \
-                    f"strativ reads files ending in {FORMATS_TEXT}"
-                raise check.error(keys, f"'{match.name}' is not a data file strativ reads", hint)
-            if resolved in found:
-                raise check.error(keys, f"'{match.name}' is named twice in '{key}'",
-                                  "list each file once, or its rows are counted twice")
-            found.append(resolved)
-    return entries, tuple(found)
-
-
-def glob_pattern(entry: str, base: Path) -> str:
-    """Return the glob pattern of a `data` entry: relative entries are taken below `base`,
-    whose own characters are escaped (a spec in a directory named "[2024]" still works).
-
-    Parameters
-    ----------
-    entry : str
-        The `data` entry as written in the spec.
-    base : Path
-        The spec file's directory.
-
-    Returns
-    -------
-    str
-        A pattern for `glob.glob` or `fnmatch.fnmatch`.
-    """
-    target = Path(entry).expanduser()
-    if target.is_absolute():
-        return str(target)
-    return str(Path(glob.escape(str(base))) / target)
 
 
 def _columns(check: _Checker, value: Any) -> Columns:
