@@ -222,11 +222,11 @@ def check(
     with _boundary() as err:
         from .grouped import group_data
         from .output_guard import check_output_paths, check_writable
+        from .probabilities import design_probabilities
         from .render import render_check, render_warnings
         from .runner import (
             check_with_core,
             data_warnings,
-            design_probabilities,
             require_outcome_values,
             summarize_design,
         )
